@@ -1,0 +1,77 @@
+"""Thin Prefect tasks around the plain stage functions of `dyadcast`; no logic lives here."""
+
+from __future__ import annotations
+
+from datetime import date
+from typing import Any
+
+import duckdb
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
+from dyadcast import cycle
+from dyadcast.config import Config
+from dyadcast.snapshots import SnapshotRef, index_snapshot
+from dyadcast.workspace import Workspace
+
+
+def say(message: str) -> None:
+    print(message, flush=True)
+
+
+@task(name="ingest", retries=2, retry_delay_seconds=[1, 5], cache_policy=NO_CACHE)
+def ingest_step(ws: Workspace, con: duckdb.DuckDBPyConnection) -> Any:
+    from dyadcast.ingest import ingest_inbox
+
+    return ingest_inbox(ws, con, progress=say)
+
+
+@task(name="features", cache_policy=NO_CACHE)
+def prepare_step(
+    con: duckdb.DuckDBPyConnection, config: Config, cutoff: date, as_of: date, run_kind: str
+) -> cycle.PreparedData:
+    return cycle.prepare(con.cursor(), config, cutoff, as_of, run_kind, progress=say)
+
+
+@task(name="fit-and-forecast", cache_policy=NO_CACHE)
+def model_step(name: str, data: cycle.PreparedData, config: Config) -> cycle.ModelForecast:
+    result = cycle.fit_and_forecast(name, data, config)
+    timings = result.metadata["timings"]
+    say(f"  {name:<22} fit {timings['fit_s']:6.1f} s, predict {timings['predict_s']:5.1f} s")
+    return result
+
+
+@task(name="snapshot", retries=2, retry_delay_seconds=[1, 5], cache_policy=NO_CACHE)
+def snapshot_step(
+    con: duckdb.DuckDBPyConnection, store: str, data: cycle.PreparedData, result: cycle.ModelForecast
+) -> SnapshotRef:
+    ref = cycle.write_forecast(store, data, result)
+    index_snapshot(con, ref, data.run_kind, data.as_of)
+    return ref
+
+
+@task(name="score", retries=1, retry_delay_seconds=[2], cache_policy=NO_CACHE)
+def score_step(con: duckdb.DuckDBPyConnection, ws: Workspace) -> Any:
+    from dyadcast.scoring import score_pending
+
+    return score_pending(con, ws.accuracy_store(), progress=say)
+
+
+@task(name="report", retries=1, retry_delay_seconds=[2], cache_policy=NO_CACHE)
+def report_step(con: duckdb.DuckDBPyConnection, ws: Workspace, cutoff: date | None) -> Any:
+    from dyadcast.report import build_report
+
+    return build_report(con, ws, cutoff)
+
+
+def forecast_cutoff(
+    con: duckdb.DuckDBPyConnection, ws: Workspace, config: Config, cutoff: date, as_of: date, run_kind: str,
+    models: list[str],
+) -> list[SnapshotRef]:
+    """Features once, then every model concurrently, then the snapshots one by one."""
+    data = prepare_step(con, config, cutoff, as_of, run_kind)
+    futures = [model_step.submit(name, data, config) for name in models]
+    refs = []
+    for future in futures:
+        refs.append(snapshot_step(con, ws.snapshot_store(), data, future.result()))
+    return refs

@@ -1,0 +1,167 @@
+"""One forecast cycle at a cutoff, as plain functions: features → fit → predict → totals → snapshot.
+
+The Prefect flows in `flows/` call these in order (and the per-model step concurrently); tests call
+them directly. Nothing here imports Prefect.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from datetime import date
+from typing import Any
+
+import duckdb
+import pandas as pd
+
+from dyadcast.config import Config
+from dyadcast.features import FeatureSet, build_features
+from dyadcast.models.base import CountModel
+from dyadcast.models.registry import make_model
+from dyadcast.months import add_months, format_month
+from dyadcast.snapshots import SnapshotRef, new_run_id, write_snapshot
+
+BASELINES = ("persistence", "seasonal_persistence", "rolling_mean")
+REFERENCE_MODEL = "persistence"
+Progress = Callable[[str], None]
+
+
+class CycleError(RuntimeError):
+    """A cycle cannot run with the data at hand; the message says what is missing."""
+
+
+@dataclass
+class PreparedData:
+    cutoff: date
+    as_of: date
+    run_kind: str
+    features: FeatureSet
+    train: pd.DataFrame
+    rows: pd.DataFrame
+    active_train: pd.DataFrame
+    active_rows: pd.DataFrame
+    dormant_rows: pd.DataFrame
+    dormant_forecast: pd.DataFrame
+    timings: dict[str, float] = field(default_factory=dict)
+
+
+@dataclass
+class ModelForecast:
+    model: str
+    forecast: pd.DataFrame  # dyad rows and totals, with a `level` column
+    metadata: dict[str, Any]
+    fitted: CountModel
+
+
+def models_to_run(config: Config, requested: Sequence[str] | None = None) -> list[str]:
+    """Configured (or requested) models, with the persistence baseline always first."""
+    names = list(requested or config.models)
+    return [REFERENCE_MODEL, *[n for n in dict.fromkeys(names) if n != REFERENCE_MODEL]]
+
+
+def newest_cutoff(con: duckdb.DuckDBPyConnection) -> date:
+    """The newest month with published flows: the default cutoff of a scheduled run."""
+    value = con.execute("SELECT max(month) FROM raw_flows").fetchone()[0]
+    if value is None:
+        raise CycleError("no flows have been loaded yet; drop a flows file into the inbox and run again")
+    return value
+
+
+def first_publication(con: duckdb.DuckDBPyConnection, cutoff: date) -> date:
+    """When the cutoff month's arrivals were first published: the as-of date of an honest backtest."""
+    value = con.execute("SELECT min(published_on) FROM raw_flows WHERE month = ?", [cutoff]).fetchone()[0]
+    if value is None:
+        raise CycleError(f"no flows were ever published for {format_month(cutoff)}; pick an earlier cutoff")
+    return value
+
+
+def prepare(
+    con: duckdb.DuckDBPyConnection, config: Config, cutoff: date, as_of: date, run_kind: str = "monthly",
+    progress: Progress = print,
+) -> PreparedData:
+    """Build the feature frame once for all models and split off the dormant dyads."""
+    from dyadcast.models.dormant import DormantForecaster, split_dormant
+
+    started = time.perf_counter()
+    start = add_months(cutoff, -(config.training_window_months + config.horizon))
+    features = build_features(con, cutoff, as_of, horizon=config.horizon, signal_config=config.signals, start=start)
+    frame = features.frame
+    month = pd.Timestamp(cutoff)
+    rows = frame[frame["month"] == month].reset_index(drop=True)
+    train = frame[frame["month"] < month].reset_index(drop=True)
+    if rows.empty:
+        raise CycleError(
+            f"no data for cutoff {format_month(cutoff)} as of {as_of}: its flows were not published by then"
+        )
+    if train.empty:
+        raise CycleError(f"no training history before {format_month(cutoff)}; load earlier months first")
+    built = time.perf_counter()
+    active_train, active_rows, dormant_rows = split_dormant(train, rows, config.zero_lookback_months)
+    dormant = DormantForecaster(config.horizon, config.quantiles, config.zero_lookback_months).fit(train)
+    dormant_forecast = dormant.predict(dormant_rows) if len(dormant_rows) else pd.DataFrame()
+    progress(
+        f"  features for {format_month(cutoff)} as of {as_of}: {len(frame):,} rows, {len(rows):,} dyads "
+        f"({len(dormant_rows):,} dormant), {len(features.feature_names)} features"
+    )
+    return PreparedData(
+        cutoff=cutoff, as_of=as_of, run_kind=run_kind, features=features, train=train, rows=rows,
+        active_train=active_train, active_rows=active_rows, dormant_rows=dormant_rows,
+        dormant_forecast=dormant_forecast,
+        timings={"features_s": built - started, "dormant_s": time.perf_counter() - built},
+    )
+
+
+def fit_and_forecast(
+    name: str, data: PreparedData, config: Config, options: dict[str, Any] | None = None,
+) -> ModelForecast:
+    """Fit one model and forecast every dyad; dormant dyads share one cheap forecaster (baselines excepted)."""
+    from dyadcast.totals import aggregate_totals
+
+    model = make_model(name, horizon=config.horizon, quantiles=config.quantiles, seed=config.seed, **(options or {}))
+    started = time.perf_counter()
+    if name in BASELINES or data.dormant_forecast.empty:
+        model.fit(data.train)
+        fitted_at = time.perf_counter()
+        dyads = model.predict(data.rows)
+    else:
+        model.fit(data.active_train)
+        fitted_at = time.perf_counter()
+        dyads = model.predict(data.active_rows) if len(data.active_rows) else data.dormant_forecast.iloc[0:0]
+        dyads = pd.concat([dyads, data.dormant_forecast], ignore_index=True)
+    predicted_at = time.perf_counter()
+    dyads.insert(0, "level", "dyad")
+    totals = aggregate_totals(dyads.drop(columns="level"), config.quantiles, seed=config.seed)
+    forecast = pd.concat([dyads, totals], ignore_index=True)
+    metadata = {
+        "model": name,
+        "run_kind": data.run_kind,
+        "as_of": data.as_of.isoformat(),
+        "horizon": config.horizon,
+        "quantiles": list(config.quantiles),
+        "quantile_method": getattr(model, "quantile_method", "unknown"),
+        "params": model.get_params(),
+        "fitted_state": model.fitted_state(),
+        "training_window": {
+            "first_anchor_month": str(data.train["month"].min().date()),
+            "last_anchor_month": str(data.train["month"].max().date()),
+            "rows": int(len(data.train)),
+            "active_rows": int(len(data.active_train)),
+        },
+        "dyads": {"total": int(len(data.rows)), "dormant": int(len(data.dormant_rows)),
+                  "dormant_handled_by": "model" if name in BASELINES else "dormant_forecaster"},
+        "features": data.features.feature_names,
+        "feature_metadata": data.features.metadata,
+        "data_vintage": {"as_of": data.as_of.isoformat()},
+        "timings": {**data.timings, "fit_s": fitted_at - started, "predict_s": predicted_at - fitted_at,
+                    "totals_s": time.perf_counter() - predicted_at},
+        "totals_method": "joint draws with a Gaussian copula within origin (see dyadcast.totals)",
+    }
+    return ModelForecast(model=name, forecast=forecast, metadata=metadata, fitted=model)
+
+
+def write_forecast(store: str, data: PreparedData, result: ModelForecast, run_id: str | None = None) -> SnapshotRef:
+    return write_snapshot(
+        store, data.cutoff, result.model, run_id or new_run_id(), result.forecast, result.metadata,
+        write_artifacts=result.fitted.save_artifacts,
+    )
