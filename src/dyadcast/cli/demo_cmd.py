@@ -49,13 +49,8 @@ def _write_demo_config(path: Path, models: tuple[str, ...], primary: str) -> Non
 @click.option("--primary", default="tweedie_gbm", show_default=True, help="Model shown first in the report.")
 def demo_command(workspace_dir: str, replay: int, backtest_months: int, seed: int, models: str, primary: str) -> None:
     """Run the whole job on an invented region: history, backtest, then monthly replays."""
-    from dyadcast.demo.scenario import (
-        generate_scenario,
-        publication_date,
-        scenario_stats,
-        write_history_drop,
-        write_monthly_drop,
-    )
+    from dyadcast.demo.drops import publication_date, write_history_drop, write_monthly_drop
+    from dyadcast.demo.scenario import generate_scenario, scenario_stats
 
     started = time.perf_counter()
     root = Path(workspace_dir).resolve()
