@@ -1,0 +1,18 @@
+-- Layer 40 (features). pull_indicators(as_of, cutoff): for every destination of the universe, panel month t
+-- and destination indicator, the value of the most recent month <= t that has a value visible on date as_of.
+-- Columns: country, month, indicator, value, value_month.
+CREATE OR REPLACE MACRO pull_indicators(as_of, cutoff) AS TABLE
+WITH known AS (
+    SELECT country, month, indicator, value
+    FROM destination_indicators_as_of(as_of)
+    WHERE value IS NOT NULL AND month <= CAST(cutoff AS DATE)
+),
+grid AS (
+    SELECT c.country, m.month, i.indicator
+    FROM (SELECT DISTINCT destination AS country FROM dyads_as_of(as_of)) AS c
+    CROSS JOIN panel_months(as_of, cutoff) AS m
+    CROSS JOIN (SELECT DISTINCT indicator FROM known) AS i
+)
+SELECT g.country, g.month, g.indicator, k.value, k.month AS value_month
+FROM grid AS g
+ASOF LEFT JOIN known AS k ON k.country = g.country AND k.indicator = g.indicator AND k.month <= g.month;
