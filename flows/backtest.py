@@ -14,7 +14,8 @@ from flows.steps import forecast_cutoff, report_step, say, score_step
 
 
 @flow(name="backtest", log_prints=False)
-def backtest(workspace: str, start: str, end: str, models: list[str] | None = None) -> dict[str, Any]:
+def backtest(workspace: str, start: str, end: str, models: list[str] | None = None,
+             mode: str | None = None) -> dict[str, Any]:
     ws = open_workspace(workspace)
     config = ws.config()
     months = month_range(parse_month(start), parse_month(end))
@@ -24,7 +25,7 @@ def backtest(workspace: str, start: str, end: str, models: list[str] | None = No
         for number, month in enumerate(months, 1):
             as_of = cycle.first_publication(con, month)
             say(f"backtest cutoff {format_month(month)} ({number}/{len(months)}), as of {as_of}")
-            refs += forecast_cutoff(con, ws, config, month, as_of, "backtest", names)
+            refs += forecast_cutoff(con, ws, config, month, as_of, "backtest", names, mode)
         scored = score_step(con, ws)
         report = report_step(con, ws, months[-1])
     return {"cutoffs": [format_month(m) for m in months], "snapshots": len(refs), "scored": scored,

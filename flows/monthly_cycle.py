@@ -21,6 +21,7 @@ def monthly_cycle(
     as_of: str | None = None,
     models: list[str] | None = None,
     ingest: bool = True,
+    mode: str | None = None,
 ) -> dict[str, Any]:
     """One monthly run. Without a cutoff, the newest month with published flows; without as-of, today."""
     ws = open_workspace(workspace)
@@ -31,7 +32,7 @@ def monthly_cycle(
         as_of_date = date.fromisoformat(as_of) if as_of else date.today()
         names = cycle.models_to_run(config, models)
         say(f"cycle {format_month(month)} (as of {as_of_date}): models {', '.join(names)}")
-        refs = forecast_cutoff(con, ws, config, month, as_of_date, "monthly", names)
+        refs = forecast_cutoff(con, ws, config, month, as_of_date, "monthly", names, mode)
         scored = score_step(con, ws)
         report = report_step(con, ws, month)
     return {

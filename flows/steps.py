@@ -33,12 +33,24 @@ def prepare_step(
     return cycle.prepare(con.cursor(), config, cutoff, as_of, run_kind, progress=say)
 
 
-@task(name="fit-and-forecast", cache_policy=NO_CACHE)
-def model_step(name: str, data: cycle.PreparedData, config: Config) -> cycle.ModelForecast:
-    result = cycle.fit_and_forecast(name, data, config)
+def _said(result: cycle.ModelForecast) -> cycle.ModelForecast:
     timings = result.metadata["timings"]
-    say(f"  {name:<22} fit {timings['fit_s']:6.1f} s, predict {timings['predict_s']:5.1f} s")
+    say(f"  {result.model:<22} fit {timings['fit_s']:6.1f} s, predict {timings['predict_s']:5.1f} s")
     return result
+
+
+@task(name="fit-and-forecast", cache_policy=NO_CACHE)
+def model_step(
+    name: str, data: cycle.PreparedData, config: Config, options: dict[str, Any]
+) -> cycle.ModelForecast:
+    return _said(cycle.fit_and_forecast(name, data, config, options))
+
+
+@task(name="ensemble", cache_policy=NO_CACHE)
+def ensemble_step(
+    data: cycle.PreparedData, config: Config, members: dict[str, cycle.ModelForecast], accuracy: Any
+) -> cycle.ModelForecast:
+    return _said(cycle.ensemble_forecast(data, config, members, accuracy))
 
 
 @task(name="snapshot", retries=2, retry_delay_seconds=[1, 5], cache_policy=NO_CACHE)
@@ -66,12 +78,16 @@ def report_step(con: duckdb.DuckDBPyConnection, ws: Workspace, cutoff: date | No
 
 def forecast_cutoff(
     con: duckdb.DuckDBPyConnection, ws: Workspace, config: Config, cutoff: date, as_of: date, run_kind: str,
-    models: list[str],
+    models: list[str], mode: str | None = None,
 ) -> list[SnapshotRef]:
-    """Features once, then every model concurrently, then the snapshots one by one."""
+    """Features once, then every model concurrently, the ensemble from its members, then the snapshots."""
     data = prepare_step(con, config, cutoff, as_of, run_kind)
-    futures = [model_step.submit(name, data, config) for name in models]
-    refs = []
-    for future in futures:
-        refs.append(snapshot_step(con, ws.snapshot_store(), data, future.result()))
-    return refs
+    mode = mode or config.monthly_mode
+    futures = {
+        name: model_step.submit(name, data, config, cycle.model_options(con, name, mode, cutoff))
+        for name in models if name != "ensemble"
+    }
+    results = {name: future.result() for name, future in futures.items()}
+    if "ensemble" in models:
+        results["ensemble"] = ensemble_step(data, config, results, cycle.accuracy_weights_source(con))
+    return [snapshot_step(con, ws.snapshot_store(), data, results[name]) for name in models]

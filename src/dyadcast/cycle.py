@@ -6,6 +6,7 @@ them directly. Nothing here imports Prefect.
 
 from __future__ import annotations
 
+import json
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -116,8 +117,6 @@ def fit_and_forecast(
     name: str, data: PreparedData, config: Config, options: dict[str, Any] | None = None,
 ) -> ModelForecast:
     """Fit one model and forecast every dyad; dormant dyads share one cheap forecaster (baselines excepted)."""
-    from dyadcast.totals import aggregate_totals
-
     model = make_model(name, horizon=config.horizon, quantiles=config.quantiles, seed=config.seed, **(options or {}))
     started = time.perf_counter()
     if name in BASELINES or data.dormant_forecast.empty:
@@ -131,7 +130,20 @@ def fit_and_forecast(
         dyads = pd.concat([dyads, data.dormant_forecast], ignore_index=True)
     predicted_at = time.perf_counter()
     dyads.insert(0, "level", "dyad")
-    totals = aggregate_totals(dyads.drop(columns="level"), config.quantiles, seed=config.seed)
+    return _package(name, model, data, config, dyads, (started, fitted_at, predicted_at), options)
+
+
+def _package(
+    name: str, model: CountModel, data: PreparedData, config: Config, dyads: pd.DataFrame,
+    clock: tuple[float, float, float], options: dict[str, Any] | None,
+) -> ModelForecast:
+    """Add coherent totals (origin dependence from the model when it estimated one) and the metadata."""
+    from dyadcast.totals import aggregate_totals
+
+    started, fitted_at, predicted_at = clock
+    state = model.fitted_state()
+    rho = state.get("origin_rho") if isinstance(state, dict) else None
+    totals = aggregate_totals(dyads.drop(columns="level"), config.quantiles, seed=config.seed, rho=rho)
     forecast = pd.concat([dyads, totals], ignore_index=True)
     metadata = {
         "model": name,
@@ -141,7 +153,9 @@ def fit_and_forecast(
         "quantiles": list(config.quantiles),
         "quantile_method": getattr(model, "quantile_method", "unknown"),
         "params": model.get_params(),
-        "fitted_state": model.fitted_state(),
+        "options": {k: v for k, v in (options or {}).items() if k != "params"},
+        "refreshed_from_stored_state": bool(options and "params" in options),
+        "fitted_state": state,
         "training_window": {
             "first_anchor_month": str(data.train["month"].min().date()),
             "last_anchor_month": str(data.train["month"].max().date()),
@@ -156,6 +170,7 @@ def fit_and_forecast(
         "timings": {**data.timings, "fit_s": fitted_at - started, "predict_s": predicted_at - fitted_at,
                     "totals_s": time.perf_counter() - predicted_at},
         "totals_method": "joint draws with a Gaussian copula within origin (see dyadcast.totals)",
+        "totals_origin_rho": rho if rho is not None else "default",
     }
     return ModelForecast(model=name, forecast=forecast, metadata=metadata, fitted=model)
 
@@ -165,3 +180,67 @@ def write_forecast(store: str, data: PreparedData, result: ModelForecast, run_id
         store, data.cutoff, result.model, run_id or new_run_id(), result.forecast, result.metadata,
         write_artifacts=result.fitted.save_artifacts,
     )
+
+
+def model_options(con: duckdb.DuckDBPyConnection, name: str, mode: str, cutoff: date) -> dict[str, Any]:
+    """'refresh': reuse the hyper-parameters of the model's newest earlier snapshot; 'fit': re-tune them.
+
+    Only models whose constructor takes `tune` and `params` have hyper-parameters to carry over.
+    """
+    import inspect
+
+    from dyadcast.models.registry import model_class
+
+    accepted = inspect.signature(model_class(name).__init__).parameters
+    if not {"tune", "params"} <= set(accepted):
+        return {}
+    if mode == "fit":
+        return {"tune": True}
+    row = con.execute(
+        "SELECT metadata_json FROM snapshot_runs WHERE model = ? AND cutoff < ? "
+        "ORDER BY cutoff DESC, created_at DESC LIMIT 1", [name, cutoff]
+    ).fetchone()
+    if row is None:
+        return {"tune": True}
+    state = json.loads(row[0]).get("fitted_state") or {}
+    return {"tune": False, "params": state} if state else {"tune": True}
+
+
+def accuracy_weights_source(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
+    """Mean WIS per model and horizon from the accuracy log (first releases, dyad level), for ensemble weights."""
+    return con.execute(
+        "SELECT model, horizon, avg(mean_wis) AS mean_wis FROM accuracy_summary "
+        "WHERE level = 'dyad' AND vintage = 'first_release' GROUP BY ALL"
+    ).df()
+
+
+def ensemble_forecast(
+    data: PreparedData, config: Config, members: dict[str, ModelForecast], accuracy: pd.DataFrame,
+) -> ModelForecast:
+    """Combine members already fitted this cycle when the accuracy log weighs all of them at every horizon.
+
+    Without that history the ensemble fits itself (a validation split per horizon picks the weights),
+    which costs a second fit of each member.
+    """
+    from dyadcast.models.ensemble import Ensemble, combine_forecasts
+
+    ensemble = make_model("ensemble", horizon=config.horizon, quantiles=config.quantiles, seed=config.seed)
+    assert isinstance(ensemble, Ensemble)
+    available = [m for m in ensemble.members if m in members]
+    if len(available) == len(ensemble.members) and not accuracy.empty:
+        ensemble.set_weights_from_accuracy(accuracy)
+        if all(h in ensemble.accuracy_weights_ for h in range(1, config.horizon + 1)):
+            started = time.perf_counter()
+            frames = {
+                m: members[m].forecast.query("level == 'dyad'").drop(columns="level") for m in available
+            }
+            dyads = combine_forecasts(frames, ensemble.accuracy_weights_, config.quantiles)
+            dyads.insert(0, "level", "dyad")
+            ensemble.weights_ = ensemble.accuracy_weights_
+            ensemble.weight_source_ = {h: "accuracy_log" for h in ensemble.weights_}
+            ensemble.validation_wis_ = {}
+            ensemble.fitted_members_ = {m: members[m].fitted for m in available}
+            ensemble.fitted_ = True
+            now = time.perf_counter()
+            return _package("ensemble", ensemble, data, config, dyads, (started, started, now), None)
+    return fit_and_forecast("ensemble", data, config)

@@ -28,14 +28,18 @@ def _month(_ctx: click.Context, _param: click.Parameter, value: str | None) -> s
 @click.option("--as-of", "as_of", help="Use only data published on or before this date (YYYY-MM-DD). Default: today.")
 @click.option("--models", help="Comma-separated model names (default: the configuration's list).")
 @click.option("--no-ingest", is_flag=True, help="Skip the inbox (forecast from what is loaded).")
-def run_command(ws: Workspace, cutoff: str | None, as_of: str | None, models: str | None, no_ingest: bool) -> None:
+@click.option("--mode", type=click.Choice(["refresh", "fit"]), default=None,
+              help="refresh: reuse stored hyper-parameters; fit: also re-tune (default: monthly_mode in the config).")
+def run_command(
+    ws: Workspace, cutoff: str | None, as_of: str | None, models: str | None, no_ingest: bool, mode: str | None
+) -> None:
     """Run the monthly cycle: ingest, features, models, snapshots, scoring, report."""
     configure_prefect(ws.prefect_home)
     from flows.monthly_cycle import monthly_cycle
 
     result = monthly_cycle(
         workspace=str(ws.root), cutoff=cutoff, as_of=as_of,
-        models=models.split(",") if models else None, ingest=not no_ingest,
+        models=models.split(",") if models else None, ingest=not no_ingest, mode=mode,
     )
     click.echo(f"cutoff {result['cutoff']}: {len(result['snapshots'])} snapshots written; report {result['report']}")
     if not result["ingest_ok"]:
