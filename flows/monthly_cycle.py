@@ -11,7 +11,7 @@ from dyadcast import cycle
 from dyadcast.months import format_month, parse_month
 from dyadcast.warehouse import open_warehouse
 from dyadcast.workspace import open_workspace
-from flows.steps import forecast_cutoff, ingest_step, report_step, say, score_step
+from flows.steps import forecast_cutoff, ingest_step, post_ingest_summary, report_step, say, score_step
 
 
 @flow(name="monthly-cycle", log_prints=False)
@@ -28,6 +28,7 @@ def monthly_cycle(
     config = ws.config()
     with open_warehouse(ws.warehouse_path) as con:
         summary = ingest_step(ws, con) if ingest else None
+        post_ingest_summary(summary)
         month = parse_month(cutoff) if cutoff else cycle.newest_cutoff(con)
         as_of_date = date.fromisoformat(as_of) if as_of else date.today()
         names = cycle.models_to_run(config, models)

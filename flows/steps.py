@@ -71,9 +71,27 @@ def score_step(con: duckdb.DuckDBPyConnection, ws: Workspace) -> Any:
 
 @task(name="report", retries=1, retry_delay_seconds=[2], cache_policy=NO_CACHE)
 def report_step(con: duckdb.DuckDBPyConnection, ws: Workspace, cutoff: date | None) -> Any:
-    from dyadcast.report import build_report
+    """Rebuild the HTML report and post the digest and skill table as Prefect artifacts (seen in the UI)."""
+    from prefect.artifacts import create_markdown_artifact, create_table_artifact
 
-    return build_report(con, ws, cutoff)
+    from dyadcast.report import build_report, report_summary_markdown, skill_table
+
+    path = build_report(con, ws, cutoff)
+    create_markdown_artifact(
+        report_summary_markdown(con, cutoff, ws.config().primary_model), key="accuracy-summary",
+        description=f"Accuracy digest; the full report is {path}",
+    )
+    table = skill_table(con)
+    if table:
+        create_table_artifact(table, key="skill-vs-persistence", description="Relative WIS and MAE by horizon")
+    return path
+
+
+def post_ingest_summary(summary: Any) -> None:
+    from prefect.artifacts import create_markdown_artifact
+
+    if summary is not None:
+        create_markdown_artifact(summary.to_markdown(), key="ingest-summary", description="Files in this run")
 
 
 def forecast_cutoff(
