@@ -70,6 +70,7 @@ def test_workspace_from_environment(tmp_path, monkeypatch) -> None:
         ("[forecast]\nquantiles = [0.1, 0.9]\n", "add"),
         ("[forecast]\nhorizon = 0\n", "horizon"),
         ("[forecast]\nmonthly_mode = 'weekly'\n", "monthly_mode"),
+        ("[forecast]\nmodels = [\"persistance\"]\n", "unknown model"),
         ("[forecast\n", "not valid TOML"),
     ],
 )
@@ -144,3 +145,12 @@ def test_reindex_picks_up_snapshots_missing_from_the_warehouse(tmp_path) -> None
     assert reindex_missing(con, tmp_path / "snap") == 1
     assert reindex_missing(con, tmp_path / "snap") == 0
     assert con.execute("SELECT run_kind FROM snapshot_runs").fetchone()[0] == "backtest"
+
+
+def test_model_options_reach_the_config(tmp_path) -> None:
+    path = tmp_path / "dyadcast.toml"
+    path.write_text("[model_options.zinb]\nmax_rows = 1000\n", encoding="utf-8")
+    assert load_config(path).model_options == {"zinb": {"max_rows": 1000}}
+    path.write_text("[model_options]\nzinb = 3\n", encoding="utf-8")
+    with pytest.raises(ConfigError, match="one table per model"):
+        load_config(path)

@@ -48,6 +48,8 @@ class Config:
     accuracy_store: str = ""  # empty: DIR/accuracy
     schedule: ScheduleConfig = field(default_factory=ScheduleConfig)
     signals: SignalConfig = field(default_factory=SignalConfig)
+    # Per-model constructor options, e.g. [model_options.zinb] max_rows = 20000
+    model_options: dict[str, dict[str, Any]] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -82,6 +84,11 @@ def validate(config: Config) -> Config:
         raise ConfigError(f"monthly_mode = {config.monthly_mode!r}: use 'refresh' or 'fit'")
     if not config.models:
         raise ConfigError("models = []: list at least one model; persistence is always added")
+    from dyadcast.models.registry import MODELS
+
+    unknown = sorted({*config.models, *config.model_options, config.primary_model} - set(MODELS))
+    if unknown:
+        raise ConfigError(f"unknown model name(s) {unknown}; available: {sorted(MODELS)}")
     return config
 
 
@@ -93,6 +100,9 @@ def load_config(path: Path) -> Config:
         raise ConfigError(f"{path}: not valid TOML ({exc}); fix the line named and rerun") from exc
     schedule = _coerce(ScheduleConfig, raw.pop("schedule", {}), f"{path} [schedule]")
     signals = _coerce(SignalConfig, raw.pop("signals", {}), f"{path} [signals]")
+    model_options = raw.pop("model_options", {})
+    if not all(isinstance(v, dict) for v in model_options.values()):
+        raise ConfigError(f"{path} [model_options]: use one table per model, e.g. [model_options.zinb]")
     forecast = raw.pop("forecast", {})
     stores = raw.pop("stores", {})
     notify = raw.pop("notify", {})
@@ -103,7 +113,8 @@ def load_config(path: Path) -> Config:
         flat["quantiles"] = tuple(float(q) for q in flat["quantiles"])
     base = _coerce(Config, {k: v for k, v in flat.items()}, str(path))
     return validate(
-        Config(**{**{f.name: getattr(base, f.name) for f in fields(Config)}, "schedule": schedule, "signals": signals})
+        Config(**{**{f.name: getattr(base, f.name) for f in fields(Config)}, "schedule": schedule,
+                  "signals": signals, "model_options": model_options})
     )
 
 
@@ -149,4 +160,8 @@ accuracy = ""
 [notify]
 # Optional: a URL that receives a short JSON message when a run fails or rejects files.
 webhook_url = ""
+
+# Optional per-model settings passed to the model's constructor, one table per model, e.g.
+# [model_options.tweedie_gbm]
+# power_grid = [1.1, 1.3, 1.5]
 """

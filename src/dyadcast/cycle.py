@@ -117,7 +117,8 @@ def fit_and_forecast(
     name: str, data: PreparedData, config: Config, options: dict[str, Any] | None = None,
 ) -> ModelForecast:
     """Fit one model and forecast every dyad; dormant dyads share one cheap forecaster (baselines excepted)."""
-    model = make_model(name, horizon=config.horizon, quantiles=config.quantiles, seed=config.seed, **(options or {}))
+    options = {**config.model_options.get(name, {}), **(options or {})}
+    model = make_model(name, horizon=config.horizon, quantiles=config.quantiles, seed=config.seed, **options)
     started = time.perf_counter()
     if name in BASELINES or data.dormant_forecast.empty:
         model.fit(data.train)

@@ -59,6 +59,9 @@ class SuiteRunner:
         from great_expectations.data_context.types.base import ProgressBarsConfig
 
         logging.captureWarnings(False)  # GX turns this on at import and would swallow every later warning
+        # GX gives some of its own loggers an explicit INFO level, so quieting the parent is not enough
+        for name in [n for n in logging.root.manager.loggerDict if n.startswith("great_expectations")]:
+            logging.getLogger(name).setLevel(logging.WARNING)
         logging.getLogger("great_expectations").setLevel(logging.WARNING)
         self._gx, self._gxe = gx, gxe
         self.context = gx.get_context(mode="ephemeral")  # never a file or cloud context found on disk
