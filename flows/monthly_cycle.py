@@ -9,9 +9,19 @@ from prefect import flow
 
 from dyadcast import cycle
 from dyadcast.months import format_month, parse_month
+from dyadcast.notify import notify, notify_on_failure, webhook_url
+from dyadcast.runlock import run_lock
 from dyadcast.warehouse import open_warehouse
 from dyadcast.workspace import open_workspace
-from flows.steps import forecast_cutoff, ingest_step, post_ingest_summary, report_step, say, score_step
+from flows.steps import (
+    forecast_cutoff,
+    ingest_step,
+    post_ingest_summary,
+    recover_step,
+    report_step,
+    say,
+    score_step,
+)
 
 
 @flow(name="monthly-cycle", log_prints=False)
@@ -26,16 +36,27 @@ def monthly_cycle(
     """One monthly run. Without a cutoff, the newest month with published flows; without as-of, today."""
     ws = open_workspace(workspace)
     config = ws.config()
-    with open_warehouse(ws.warehouse_path) as con:
+    hook = webhook_url(config.webhook_url)
+    with (
+        run_lock(ws.lock_path, "monthly-cycle"),
+        notify_on_failure(hook, str(ws.root), cutoff, "monthly cycle") as notice,
+        open_warehouse(ws.warehouse_path) as con,
+    ):
+        recover_step(con, ws)
         summary = ingest_step(ws, con) if ingest else None
         post_ingest_summary(summary)
         month = parse_month(cutoff) if cutoff else cycle.newest_cutoff(con)
+        notice.cutoff = format_month(month)
         as_of_date = date.fromisoformat(as_of) if as_of else date.today()
         names = cycle.models_to_run(config, models)
         say(f"cycle {format_month(month)} (as of {as_of_date}): models {', '.join(names)}")
         refs = forecast_cutoff(con, ws, config, month, as_of_date, "monthly", names, mode)
         scored = score_step(con, ws)
         report = report_step(con, ws, month)
+    if summary is not None and not summary.ok:
+        notify(hook, "files_rejected", workspace=str(ws.root), cutoff=format_month(month),
+               message=f"{len(summary.rejected)} file(s) rejected; forecasts were made from the accepted data",
+               rejected=summary.rejected)
     return {
         "cutoff": format_month(month),
         "as_of": as_of_date.isoformat(),

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+from collections import deque
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
 from datetime import date
 from typing import Any
 
@@ -11,12 +14,31 @@ from prefect.cache_policies import NO_CACHE
 
 from dyadcast import cycle
 from dyadcast.config import Config
-from dyadcast.snapshots import SnapshotRef, index_snapshot
+from dyadcast.snapshots import (
+    METADATA_FILE,
+    SnapshotRef,
+    index_snapshot,
+    new_run_id,
+    reindex_missing,
+    snapshot_dir,
+)
+from dyadcast.stores import ACCURACY_TEMP_GLOBS, clean_temporary
 from dyadcast.workspace import Workspace
 
 
 def say(message: str) -> None:
     print(message, flush=True)
+
+
+@task(name="recover", retries=2, retry_delay_seconds=[1, 5], cache_policy=NO_CACHE)
+def recover_step(con: duckdb.DuckDBPyConnection, ws: Workspace) -> int:
+    """Finish what an interrupted run left: remove its temporary files, index snapshots it wrote."""
+    clean_temporary(ws.snapshot_store(), log=say)
+    clean_temporary(ws.accuracy_store(), globs=ACCURACY_TEMP_GLOBS, log=say)
+    added = reindex_missing(con, ws.snapshot_store())
+    if added:
+        say(f"  indexed {added} snapshot(s) that an interrupted run wrote but did not index")
+    return added
 
 
 @task(name="ingest", retries=2, retry_delay_seconds=[1, 5], cache_policy=NO_CACHE)
@@ -55,9 +77,16 @@ def ensemble_step(
 
 @task(name="snapshot", retries=2, retry_delay_seconds=[1, 5], cache_policy=NO_CACHE)
 def snapshot_step(
-    con: duckdb.DuckDBPyConnection, store: str, data: cycle.PreparedData, result: cycle.ModelForecast
+    con: duckdb.DuckDBPyConnection, store: str, data: cycle.PreparedData, result: cycle.ModelForecast,
+    run_id: str,
 ) -> SnapshotRef:
-    ref = cycle.write_forecast(store, data, result)
+    """The run id comes from the caller, so a retry after a written-but-not-indexed snapshot indexes it
+    instead of writing a second copy under a new id."""
+    path = snapshot_dir(store, data.cutoff, result.model, run_id)
+    if (path / METADATA_FILE).is_file():
+        ref = SnapshotRef(run_id, data.cutoff, result.model, path)
+    else:
+        ref = cycle.write_forecast(store, data, result, run_id)
     index_snapshot(con, ref, data.run_kind, data.as_of)
     return ref
 
@@ -94,18 +123,79 @@ def post_ingest_summary(summary: Any) -> None:
         create_markdown_artifact(summary.to_markdown(), key="ingest-summary", description="Files in this run")
 
 
+@dataclass
+class CutoffInFlight:
+    data: cycle.PreparedData
+    futures: dict[str, Any]
+    written: dict[str, SnapshotRef] = field(default_factory=dict)
+
+
+def submit_cutoff(
+    con: duckdb.DuckDBPyConnection, config: Config, cutoff: date, as_of: date, run_kind: str, models: list[str],
+    mode: str,
+) -> CutoffInFlight:
+    """Features here (DuckDB stays in the flow process), then every model's fit on the task runner."""
+    data = prepare_step(con, config, cutoff, as_of, run_kind)
+    futures = {
+        name: model_step.submit(name, data, config, cycle.model_options(con, name, mode, cutoff))
+        for name in models if name != "ensemble"
+    }
+    return CutoffInFlight(data, futures)
+
+
+def write_cutoff(
+    con: duckdb.DuckDBPyConnection, ws: Workspace, config: Config, job: CutoffInFlight, names: list[str]
+) -> None:
+    """Wait for the named models (the ensemble from its members), then write and index their snapshots."""
+    for name in names:
+        if name in job.written:
+            continue
+        if name == "ensemble":
+            members = {n: f.result() for n, f in job.futures.items()}
+            result = ensemble_step(job.data, config, members, cycle.accuracy_weights_source(con))
+        else:
+            result = job.futures[name].result()
+        job.written[name] = snapshot_step(con, ws.snapshot_store(), job.data, result, new_run_id())
+
+
 def forecast_cutoff(
     con: duckdb.DuckDBPyConnection, ws: Workspace, config: Config, cutoff: date, as_of: date, run_kind: str,
     models: list[str], mode: str | None = None,
 ) -> list[SnapshotRef]:
     """Features once, then every model concurrently, the ensemble from its members, then the snapshots."""
-    data = prepare_step(con, config, cutoff, as_of, run_kind)
+    job = submit_cutoff(con, config, cutoff, as_of, run_kind, models, mode or config.monthly_mode)
+    write_cutoff(con, ws, config, job, models)
+    return [job.written[name] for name in models]
+
+
+def forecast_cutoffs(
+    con: duckdb.DuckDBPyConnection, ws: Workspace, config: Config, cutoffs: Sequence[date],
+    as_of: Callable[[date], date], run_kind: str, models: list[str], mode: str | None = None, in_flight: int = 3,
+) -> list[SnapshotRef]:
+    """Many cutoffs with the fits of up to `in_flight` cutoffs running at once; same snapshots as one by one.
+
+    In refresh mode a model with hyper-parameters reuses those of its previous cutoff's snapshot, so its
+    snapshot is written before the next cutoff is submitted; every other fit runs ahead freely.
+    """
     mode = mode or config.monthly_mode
-    futures = {
-        name: model_step.submit(name, data, config, cycle.model_options(con, name, mode, cutoff))
-        for name in models if name != "ensemble"
-    }
-    results = {name: future.result() for name, future in futures.items()}
-    if "ensemble" in models:
-        results["ensemble"] = ensemble_step(data, config, results, cycle.accuracy_weights_source(con))
-    return [snapshot_step(con, ws.snapshot_store(), data, results[name]) for name in models]
+    # model_options(..., "fit", ...) is non-empty exactly for the models that have hyper-parameters
+    carried = [n for n in models if mode == "refresh" and cycle.model_options(con, n, "fit", cutoffs[0])]
+    jobs: deque[CutoffInFlight] = deque()
+    refs: list[SnapshotRef] = []
+
+    def retire_oldest() -> None:
+        job = jobs.popleft()
+        write_cutoff(con, ws, config, job, models)
+        refs.extend(job.written[name] for name in models)
+
+    for number, month in enumerate(cutoffs, 1):
+        for job in jobs:
+            write_cutoff(con, ws, config, job, carried)
+        day = as_of(month)
+        say(f"{run_kind} cutoff {month:%Y-%m} ({number}/{len(cutoffs)}), as of {day}")
+        jobs.append(submit_cutoff(con, config, month, day, run_kind, models, mode))
+        while len(jobs) >= max(1, in_flight):
+            retire_oldest()
+    while jobs:
+        retire_oldest()
+    return refs
