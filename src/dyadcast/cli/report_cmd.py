@@ -7,7 +7,6 @@ import duckdb
 
 from dyadcast.cli.common import with_workspace
 from dyadcast.months import parse_month
-from dyadcast.report import build_report, report_summary_markdown
 from dyadcast.warehouse import open_warehouse
 from dyadcast.workspace import Workspace
 
@@ -25,6 +24,8 @@ def report_command(ws: Workspace, cutoff: str | None, summary: bool) -> None:
         raise click.BadParameter(str(exc), param_hint="--cutoff") from exc
     try:
         with open_warehouse(ws.warehouse_path) as con:
+            from dyadcast.report import build_report, report_summary_markdown  # matplotlib: import when used
+
             path = build_report(con, ws, month)
             digest = report_summary_markdown(con, month, ws.config().primary_model) if summary else ""
     except duckdb.IOException as exc:
