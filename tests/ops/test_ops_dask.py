@@ -41,7 +41,6 @@ def test_dask_backtest_equals_in_process(tmp_path: Path, prefect_api: str, loade
     assert len(expected) == 12  # 6 cutoffs x (persistence, poisson_glm)
     assert set(got) == set(expected)
     for key, frame in expected.items():
-        # same code, data and seeds: the values must agree exactly, whichever process computed them
         # Worker processes may run BLAS with another thread count, which moves the last bits of a GLM fit;
         # "the same snapshots" therefore means equal to 1e-9 relative, not bit for bit.
         pd.testing.assert_frame_equal(got[key], frame, check_exact=False, rtol=1e-9, atol=1e-12,
