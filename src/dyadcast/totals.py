@@ -271,11 +271,49 @@ def _draw(z: np.ndarray, p: np.ndarray, m: np.ndarray, alpha: np.ndarray) -> np.
         j = np.searchsorted(flat, 3.0 * r_loc + level[take], side="left") - r_loc * width
         ok = j < width
         value[take[ok]] = j[ok]
-    rest = value < 0
-    if rest.any():
-        value[rest] = stats.nbinom.ppf(level[rest], n[rows[rest]], pp[rows[rest]])
+    rest = np.flatnonzero(value < 0)
+    if rest.size:
+        value[rest] = _windowed_ppf(level[rest], rows[rest], n, pp)
     y[rows, cols] = np.maximum(value, 1.0)
     return y
+
+
+def _windowed_ppf(level: np.ndarray, row: np.ndarray, n: np.ndarray, pp: np.ndarray,
+                  max_window: int = 1 << 17) -> np.ndarray:
+    """NB quantiles for large-mean rows: a CDF table over just the window of counts the levels fall in.
+
+    Why: scipy's `nbinom.ppf` inverts the CDF iteratively per value (~5 us each), and a dyad with a mean in
+    the thousands gets hundreds of draws per horizon; the table from 0 would be too wide. Per row, the
+    window runs from ppf(lowest level) to ppf(highest level) (two exact scipy calls), its CDF starts from
+    the exact CDF below the window and adds pmf terms by recurrence. Values the table cannot place (rounding
+    at the window's end, or windows wider than `max_window`) use scipy exactly.
+    """
+    out = np.full(level.size, -1.0)
+    order = np.argsort(row, kind="stable")
+    groups = np.split(order, np.flatnonzero(np.diff(row[order])) + 1)
+    rows = np.array([row[g[0]] for g in groups])
+    lowest = np.array([level[g].min() for g in groups])
+    highest = np.array([level[g].max() for g in groups])
+    n_r, p_r = n[rows], pp[rows]
+    k_lo, k_hi = stats.nbinom.ppf(lowest, n_r, p_r), stats.nbinom.ppf(highest, n_r, p_r)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        below = np.where(k_lo > 0, special.betainc(n_r, np.maximum(k_lo, 1.0), p_r), 0.0)  # CDF(k_lo - 1)
+        log_pmf0 = stats.nbinom.logpmf(k_lo, n_r, p_r)
+        log_q = np.log1p(-p_r)
+        for i, idx in enumerate(groups):
+            width = k_hi[i] - k_lo[i] + 1
+            if not np.isfinite(width) or width > max_window:
+                continue
+            k = k_lo[i] + np.arange(1, int(width))
+            log_pmf = log_pmf0[i] + np.concatenate([[0.0], np.cumsum(np.log((k - 1 + n_r[i]) / k) + log_q[i])])
+            cdf = below[i] + np.cumsum(np.exp(log_pmf))
+            j = np.searchsorted(cdf, level[idx], side="left")
+            ok = j < cdf.size
+            out[idx[ok]] = k_lo[i] + j[ok]
+    missing = out < 0
+    if missing.any():
+        out[missing] = stats.nbinom.ppf(level[missing], n[row[missing]], pp[row[missing]])
+    return out
 
 
 def _cdf_table(n: np.ndarray, pp: np.ndarray, width: int) -> np.ndarray:

@@ -134,3 +134,46 @@ def test_given_weights_skip_validation_and_real_members_run(sim):
     assert list(forecast.columns) == forecast_columns(LEVELS)
     assert (np.diff(forecast[QCOLS].to_numpy(), axis=1) >= 0).all()
     assert model.get_params()["members"] == ("persistence", "rolling_mean")
+
+
+def test_refresh_carries_last_months_weights_and_skips_the_validation(sim):
+    first = Ensemble(3, LEVELS, members=(Good(3, LEVELS), Biased(3, LEVELS))).fit(sim.train)
+    state = json.loads(json.dumps(first.fitted_state()))
+    again = Ensemble(3, LEVELS, members=(Good(3, LEVELS), Biased(3, LEVELS)), tune=False, params=state)
+    again.fit(sim.train)
+    new = again.fitted_state()
+    assert new["weight_source"] == {"1": "previous fit", "2": "previous fit", "3": "previous fit"}
+    assert new["validation_wis"] == {}  # no second validation fit: the saving in "refresh" mode
+    for h in ("1", "2", "3"):
+        assert new["weights"][h] == pytest.approx(state["weights"][h])
+    assert new["pseudo_cutoff"] == state["pseudo_cutoff"]  # where those weights were validated
+    # fit mode re-validates even with a stored state
+    tuned = Ensemble(3, LEVELS, members=(Good(3, LEVELS), Biased(3, LEVELS)), tune=True, params=state).fit(sim.train)
+    assert set(tuned.fitted_state()["weight_source"].values()) == {"validation"}
+
+
+def test_members_fitted_earlier_in_the_cycle_are_reused():
+    sim = simulate(n_origins=4, n_destinations=8, n_months=40, horizon=2, alpha=0.5, seed=18)
+    from dyadcast.models.registry import make_model
+
+    earlier = {"persistence": make_model("persistence", 2, LEVELS).fit(sim.train)}
+    model = Ensemble(2, LEVELS, members=("persistence", "rolling_mean"), weights={"persistence": 1, "rolling_mean": 1})
+    model.use_fitted_members(earlier).fit(sim.train)
+    assert model.fitted_members_["persistence"] is earlier["persistence"]
+    assert model.fitted_state()["member_source"] == {"persistence": "fitted earlier in the cycle",
+                                                     "rolling_mean": "fitted here"}
+    assert list(model.predict(sim.rows).columns) == forecast_columns(LEVELS)
+
+
+def test_real_members_refresh_from_their_stored_states(sim):
+    """Validation fits hand the tuned GBM power to the final fit; a refresh starts members from their state."""
+    fast = {"tweedie_gbm": {"max_rounds": 60, "power_grid": (1.2, 1.5)}}
+    model = Ensemble(3, LEVELS, members=("poisson_glm", "tweedie_gbm"), member_options=fast).fit(sim.train)
+    state = json.loads(json.dumps(model.fitted_state()))
+    gbm = state["members"]["tweedie_gbm"]
+    assert all(len(d) == 1 for d in gbm["validation_deviance"].values())  # final fit reused the chosen power
+    refreshed = Ensemble(3, LEVELS, members=("poisson_glm", "tweedie_gbm"), member_options=fast, tune=False,
+                         params=state).fit(sim.train)
+    members = refreshed.fitted_state()["members"]
+    assert all(s["start"].startswith("previous fit") for s in members["poisson_glm"].values())
+    assert members["tweedie_gbm"]["power"] == gbm["power"] and members["tweedie_gbm"]["rounds"] == gbm["rounds"]

@@ -154,3 +154,16 @@ def test_conformal_covers_nb_data_and_widens_with_the_flow():
     assert p[0] < p[1] <= 1.0
     with pytest.raises(KeyError, match="horizon 2 was not fitted"):
         cal.quantiles(mu[:3], 2)
+
+
+def test_refresh_at_another_learning_rate_chooses_its_rounds_again(sim, tuned):
+    state = json.loads(json.dumps(tuned.fitted_state()))
+    assert state["learning_rate"] == FAST["learning_rate"]
+    other = {**FAST, "learning_rate": 0.3}
+    refreshed = TweedieGBM(3, LEVELS, seed=4, tune=False, params=state, **other).fit(sim.train)
+    new = refreshed.fitted_state()
+    assert new["power"] == state["power"]  # the variance power still carries over
+    # rounds learned at 0.1 would be wrong at 0.3: early stopping picked them again (fewer, at a higher rate)
+    assert sum(new["rounds"].values()) < sum(state["rounds"].values())
+    same = TweedieGBM(3, LEVELS, seed=4, tune=False, params=state, **FAST).fit(sim.train).fitted_state()
+    assert same["rounds"] == state["rounds"]

@@ -143,10 +143,21 @@ def copula_weight(mu: np.ndarray, alpha: np.ndarray) -> np.ndarray:
     """Corr(Y, Z) for Y = F^-1(Phi(Z)), F the NB2(mu, alpha) CDF: 1 for a normal margin, less for small counts.
 
     Computed on a log grid of mu per distinct alpha (rounded to 2 significant digits) and interpolated.
+    The sum over k runs over every count up to `DENSE_COUNTS` and over a geometric grid beyond, each grid
+    interval summed by the Euler-Maclaurin trapezoid rule (relative error ~1e-5 against the full sum for
+    alpha 0.05-20, see the tests; the full sum cost up to ~0.5 s per alpha at heavy tails).
     """
+    return _copula_weight(np.asarray(mu, dtype=float), np.asarray(alpha, dtype=float))
+
+
+DENSE_COUNTS = 400
+SPARSE_POINTS = 800
+
+
+def _copula_weight(mu: np.ndarray, alpha: np.ndarray, dense: int = DENSE_COUNTS,
+                   sparse: int = SPARSE_POINTS) -> np.ndarray:
     from scipy import special, stats
 
-    mu, alpha = np.asarray(mu, dtype=float), np.asarray(alpha, dtype=float)
     out = np.ones(mu.shape)
     a_key = np.array([float(f"{v:.2g}") for v in np.maximum(alpha, 1e-6)]) if alpha.size else alpha
     grid = np.logspace(-3, 3, 43)  # beyond 1e3 the weight is flat (np.interp holds the end value)
@@ -156,11 +167,16 @@ def copula_weight(mu: np.ndarray, alpha: np.ndarray) -> np.ndarray:
         top = stats.nbinom.ppf(1 - 1e-7, n, p)
         weights = np.empty(grid.size)
         for i, (pi, kmax) in enumerate(zip(p, top, strict=True)):
-            k = np.arange(int(kmax) + 1) if kmax < 5e4 else np.unique(np.geomspace(1, kmax, 5_000).astype(int))
-            cdf = np.clip(stats.nbinom.cdf(k, n, pi), 1e-300, 1 - 1e-16)
-            jumps = special.ndtri(cdf)
-            step = np.diff(np.append(k, k[-1] + 1))  # geomspace path: each term stands for `step` values
-            weights[i] = np.sum(np.exp(-jumps**2 / 2) / np.sqrt(2 * np.pi) * step) / np.sqrt(grid[i] + a * grid[i] ** 2)
+            k = np.arange(int(kmax) + 1)
+            if kmax > dense + sparse:
+                k = np.unique(np.concatenate([k[: dense + 1], np.geomspace(dense, kmax, sparse).astype(int)]))
+            cdf = np.clip(special.betainc(n, k + 1.0, pi), 1e-300, 1 - 1e-16)
+            term = np.exp(-special.ndtri(cdf) ** 2 / 2) / np.sqrt(2 * np.pi)
+            step = np.diff(np.append(k, k[-1] + 1))
+            after = np.append(term[1:], term[-1])
+            # sum of term over [k_j, k_j + step): Euler-Maclaurin, trapezoid plus the end correction
+            block = np.where(step > 1, step * (term + after) / 2 + (term - after) / 2, term)
+            weights[i] = np.sum(block) / np.sqrt(grid[i] + a * grid[i] ** 2)
         sel = a_key == a
         out[sel] = np.interp(np.log(mu[sel]), np.log(grid), np.clip(weights, 0.0, 1.0))
     return out

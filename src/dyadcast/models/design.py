@@ -89,23 +89,32 @@ def subsample(frame: pd.DataFrame, max_rows: int | None, seed: int) -> pd.DataFr
 def independent_columns(matrix: np.ndarray, intercept: bool, tol: float = 1e-9) -> np.ndarray:
     """Keep each column unless it is constant or a linear combination of the columns kept before it.
 
-    Works on the Gram matrix of all rows (k x k), so a dummy for a rare level is never missed.
+    Works on the Gram matrix of all rows (k x k), so a dummy for a rare level is never missed. The squared
+    distance of column j from the span of the kept columns is g_jj - |L^-1 g_kj|^2, with L the Cholesky
+    factor of the kept columns' Gram matrix, grown one column at a time (one triangular solve per column).
     """
+    from scipy.linalg import solve_triangular
+
     gram = matrix.T @ matrix
-    keep = np.zeros(matrix.shape[1], dtype=bool)
-    for j in range(matrix.shape[1]):
-        if not (intercept and j == 0) and np.ptp(matrix[:, j]) == 0:
+    k = matrix.shape[1]
+    keep = np.zeros(k, dtype=bool)
+    chol = np.zeros((k, k))
+    size = 0
+    constant = np.ptp(matrix, axis=0) == 0 if matrix.shape[0] else np.ones(k, dtype=bool)
+    for j in range(k):
+        if not (intercept and j == 0) and constant[j]:
             continue
-        kept = np.flatnonzero(keep)
         g_jj = gram[j, j]
         if g_jj <= 0:
             continue
-        if kept.size:
-            g = gram[kept, j]
-            resid = g_jj - g @ np.linalg.lstsq(gram[np.ix_(kept, kept)], g, rcond=None)[0]
-        else:
-            resid = g_jj
-        keep[j] = resid > tol * g_jj
+        kept = np.flatnonzero(keep)
+        v = solve_triangular(chol[:size, :size], gram[kept, j], lower=True) if size else np.zeros(0)
+        resid = g_jj - float(v @ v)
+        if resid > tol * g_jj:
+            chol[size, :size] = v
+            chol[size, size] = np.sqrt(resid)
+            size += 1
+            keep[j] = True
     return keep
 
 
@@ -126,6 +135,11 @@ class Design:
     dropped_: list[str] = field(default_factory=list, init=False)
 
     def fit(self, frame: pd.DataFrame, horizon: int = 0) -> Design:
+        self.fit_transform(frame, horizon)
+        return self
+
+    def fit_transform(self, frame: pd.DataFrame, horizon: int = 0) -> np.ndarray:
+        """Learn the encoding and return the training matrix (built once, not again by `transform`)."""
         if len(frame) == 0:
             raise ValueError("cannot build a design from an empty training frame")
         self.log1p = resolve_columns(frame, self.log1p)
@@ -141,7 +155,7 @@ class Design:
         self._keep = independent_columns(matrix, self.intercept)
         self.names_ = [n for n, k in zip(names, self._keep, strict=True) if k]
         self.dropped_ = [n for n, k in zip(names, self._keep, strict=True) if not k]
-        return self
+        return matrix[:, self._keep]
 
     def transform(self, frame: pd.DataFrame, horizon: int = 0) -> np.ndarray:
         if self._keep is None:
