@@ -7,6 +7,7 @@ from typing import Any
 from prefect import flow
 
 from dyadcast import cycle
+from dyadcast.models.mle import one_line_fallbacks
 from dyadcast.months import format_month, month_range, parse_month
 from dyadcast.notify import notify_on_failure, webhook_url
 from dyadcast.runlock import run_lock
@@ -18,6 +19,7 @@ from flows.steps import forecast_cutoffs, recover_step, report_step, score_step
 @flow(name="backtest", log_prints=False)
 def backtest(workspace: str, start: str, end: str, models: list[str] | None = None,
              mode: str | None = None) -> dict[str, Any]:
+    one_line_fallbacks()
     ws = open_workspace(workspace)
     config = ws.config()
     months = month_range(parse_month(start), parse_month(end))

@@ -8,6 +8,7 @@ from typing import Any
 from prefect import flow
 
 from dyadcast import cycle
+from dyadcast.models.mle import one_line_fallbacks
 from dyadcast.months import format_month, parse_month
 from dyadcast.notify import notify, notify_on_failure, webhook_url
 from dyadcast.runlock import run_lock
@@ -34,6 +35,7 @@ def monthly_cycle(
     mode: str | None = None,
 ) -> dict[str, Any]:
     """One monthly run. Without a cutoff, the newest month with published flows; without as-of, today."""
+    one_line_fallbacks()
     ws = open_workspace(workspace)
     config = ws.config()
     hook = webhook_url(config.webhook_url)

@@ -70,9 +70,10 @@ def model_step(
 
 @task(name="ensemble", cache_policy=NO_CACHE)
 def ensemble_step(
-    data: cycle.PreparedData, config: Config, members: dict[str, cycle.ModelForecast], accuracy: Any
+    data: cycle.PreparedData, config: Config, members: dict[str, cycle.ModelForecast], accuracy: Any,
+    options: dict[str, Any],
 ) -> cycle.ModelForecast:
-    return _said(cycle.ensemble_forecast(data, config, members, accuracy))
+    return _said(cycle.ensemble_forecast(data, config, members, accuracy, options))
 
 
 @task(name="snapshot", retries=2, retry_delay_seconds=[1, 5], cache_policy=NO_CACHE)
@@ -127,6 +128,7 @@ def post_ingest_summary(summary: Any) -> None:
 class CutoffInFlight:
     data: cycle.PreparedData
     futures: dict[str, Any]
+    mode: str = "refresh"
     written: dict[str, SnapshotRef] = field(default_factory=dict)
 
 
@@ -140,7 +142,7 @@ def submit_cutoff(
         name: model_step.submit(name, data, config, cycle.model_options(con, name, mode, cutoff))
         for name in models if name != "ensemble"
     }
-    return CutoffInFlight(data, futures)
+    return CutoffInFlight(data, futures, mode)
 
 
 def write_cutoff(
@@ -152,7 +154,8 @@ def write_cutoff(
             continue
         if name == "ensemble":
             members = {n: f.result() for n, f in job.futures.items()}
-            result = ensemble_step(job.data, config, members, cycle.accuracy_weights_source(con))
+            options = cycle.model_options(con, "ensemble", job.mode, job.data.cutoff)
+            result = ensemble_step(job.data, config, members, cycle.accuracy_weights_source(con), options)
         else:
             result = job.futures[name].result()
         job.written[name] = snapshot_step(con, ws.snapshot_store(), job.data, result, new_run_id())

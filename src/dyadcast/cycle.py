@@ -115,10 +115,12 @@ def prepare(
 
 def fit_and_forecast(
     name: str, data: PreparedData, config: Config, options: dict[str, Any] | None = None,
+    model: CountModel | None = None,
 ) -> ModelForecast:
     """Fit one model and forecast every dyad; dormant dyads share one cheap forecaster (baselines excepted)."""
     options = {**config.model_options.get(name, {}), **(options or {})}
-    model = make_model(name, horizon=config.horizon, quantiles=config.quantiles, seed=config.seed, **options)
+    if model is None:
+        model = make_model(name, horizon=config.horizon, quantiles=config.quantiles, seed=config.seed, **options)
     started = time.perf_counter()
     if name in BASELINES or data.dormant_forecast.empty:
         model.fit(data.train)
@@ -153,7 +155,8 @@ def _package(
         "horizon": config.horizon,
         "quantiles": list(config.quantiles),
         "quantile_method": getattr(model, "quantile_method", "unknown"),
-        "params": model.get_params(),
+        # the stored state a refresh started from is recorded as a flag, not copied again
+        "params": {k: v for k, v in model.get_params().items() if k != "params"},
         "options": {k: v for k, v in (options or {}).items() if k != "params"},
         "refreshed_from_stored_state": bool(options and "params" in options),
         "fitted_state": state,
@@ -217,11 +220,12 @@ def accuracy_weights_source(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
 
 def ensemble_forecast(
     data: PreparedData, config: Config, members: dict[str, ModelForecast], accuracy: pd.DataFrame,
+    options: dict[str, Any] | None = None,
 ) -> ModelForecast:
     """Combine members already fitted this cycle when the accuracy log weighs all of them at every horizon.
 
-    Without that history the ensemble fits itself (a validation split per horizon picks the weights),
-    which costs a second fit of each member.
+    Without that history the ensemble picks its weights itself (last month's weights in refresh mode, else a
+    validation split per horizon) and reuses the members fitted this cycle for the final forecast.
     """
     from dyadcast.models.ensemble import Ensemble, combine_forecasts
 
@@ -244,4 +248,9 @@ def ensemble_forecast(
             ensemble.fitted_ = True
             now = time.perf_counter()
             return _package("ensemble", ensemble, data, config, dyads, (started, started, now), None)
-    return fit_and_forecast("ensemble", data, config)
+    options = {**config.model_options.get("ensemble", {}), **(options or {})}
+    ensemble = make_model("ensemble", horizon=config.horizon, quantiles=config.quantiles, seed=config.seed,
+                          **options)
+    assert isinstance(ensemble, Ensemble)
+    ensemble.use_fitted_members({m: r.fitted for m, r in members.items()})
+    return fit_and_forecast("ensemble", data, config, options, model=ensemble)
