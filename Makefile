@@ -10,7 +10,7 @@ WORKSPACE ?= demo-workspace
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test]'
+	$(BIN)/python -m pip install --quiet -e '.[test,dask]'
 	@touch $(STAMP)
 
 demo: $(STAMP)
