@@ -1,0 +1,350 @@
+"""The benchmark stages. Each runs in a fresh process (`run_bench.py --child NAME`) and measures its parts
+with `Meter`, so one stage's memory never inflates another's.
+
+Work folder layout (bench/output/<scale>/): drops/{history,month,dense}, workspaces ws_base (history only),
+ws_12 / ws_120 (history + stored runs, scored), ws_cycle / ws_flow (copies of ws_12 for the monthly cycle
+without and with Prefect), results/<stage>.json.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import sys
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, replace
+from datetime import date
+from pathlib import Path
+from typing import Any
+
+import global_panel as gp
+import pandas as pd
+import pandas_features
+import pyarrow.parquet as pq
+from meter import Meter
+from seed_runs import copy_scored_state, plan, seed_runs, source_forecast
+
+from dyadcast.config import DEFAULT_TOML, Config
+from dyadcast.months import add_months, format_month
+from dyadcast.workspace import Workspace, init_workspace, open_workspace
+
+REPO = Path(__file__).resolve().parents[1]
+CYCLE_MODELS = ("persistence", "tweedie_gbm")
+EXTRA_MODELS = ("seasonal_persistence", "rolling_mean", "poisson_glm", "negative_binomial", "hurdle_nb", "zinb",
+                "ppml_gravity", "ensemble")
+SAMPLE_DYADS = 300
+
+
+@dataclass(frozen=True)
+class Context:
+    work: Path
+    spec: gp.PanelSpec
+    scale: str
+    model_budget_s: float = 120.0  # per extra model
+
+    @property
+    def months(self) -> list[date]:
+        return gp.month_starts(self.spec)
+
+    @property
+    def new_month(self) -> date:  # the month of the monthly drop
+        return self.months[-1]
+
+    @property
+    def last_history_month(self) -> date:
+        return self.months[-2]
+
+    def as_of(self, cutoff: date) -> date:
+        return gp.publication(cutoff)
+
+    def drops(self, part: str) -> Path:
+        return self.work / "drops" / part
+
+    def ws_dir(self, name: str) -> Path:
+        return self.work / f"ws_{name}"
+
+    def ws(self, name: str) -> Workspace:
+        return open_workspace(self.ws_dir(name))
+
+    def config(self) -> Config:
+        return Config(models=CYCLE_MODELS, primary_model="tweedie_gbm")
+
+    def window_start(self, cutoff: date) -> date:
+        config = self.config()
+        return add_months(cutoff, -(config.training_window_months + config.horizon))
+
+
+def new_workspace(path: Path) -> Workspace:
+    """A fresh workspace whose configuration runs the two cycle models."""
+    shutil.rmtree(path, ignore_errors=True)
+    ws = init_workspace(path)
+    text = DEFAULT_TOML.replace('models = ["persistence", "poisson_glm"]', f"models = {json.dumps(list(CYCLE_MODELS))}")
+    text = text.replace('primary_model = "poisson_glm"', 'primary_model = "tweedie_gbm"')
+    ws.config_path.write_text(text, encoding="utf-8")
+    if ws.config().models != CYCLE_MODELS:
+        raise RuntimeError(f"{ws.config_path}: could not set models to {CYCLE_MODELS}; DEFAULT_TOML changed shape")
+    return ws
+
+
+def clone(source: Path, target: Path) -> None:
+    shutil.rmtree(target, ignore_errors=True)
+    shutil.copytree(source, target)
+
+
+def drop_into_inbox(files: list[Path], ws: Workspace) -> None:
+    for path in files:
+        target = ws.inbox / path.name
+        try:
+            os.link(path, target)  # the ingest moves the inbox file; the drop stays for the next stage
+        except OSError:
+            shutil.copy(path, target)
+
+
+def folder_mb(path: Path) -> float:
+    return round(sum(p.stat().st_size for p in path.rglob("*") if p.is_file()) / 1e6, 1)
+
+
+def _ingest(meter: Meter, ws: Workspace, con: Any, files: list[Path], stage: str) -> None:
+    from dyadcast.ingest import ingest_inbox
+    from dyadcast.ingest.validate import get_runner
+
+    with meter.stage("gx_startup", note="Great Expectations import + context, once per process"):
+        get_runner()
+    drop_into_inbox(files, ws)
+    with meter.stage(stage) as rec:
+        summary = ingest_inbox(ws, con)
+        rec["rows_by_kind"] = summary.rows_by_kind
+        rec["files"] = {f.file: {"status": f.status, "rows": f.rows, "seconds": round(f.seconds, 2)}
+                        for f in summary.files}
+    if not summary.ok:
+        raise RuntimeError(f"{stage}: ingest rejected files: {[f.reason for f in summary.rejected]}")
+
+
+# --- stages ----------------------------------------------------------------------------------------------
+
+def generate(ctx: Context, meter: Meter) -> None:
+    shutil.rmtree(ctx.work / "drops", ignore_errors=True)
+    with meter.stage("simulate") as rec:
+        panel = gp.simulate(ctx.spec)
+        rec.update(dyads=ctx.spec.n_dyads, months=ctx.spec.n_months, zero_share=round(panel.zero_share, 4))
+    with meter.stage("write_drops") as rec:
+        files = {**gp.write_history(panel, ctx.drops("history")), **{
+            f"month_{k}": p for k, p in gp.write_month(panel, ctx.drops("month")).items()}}
+        files["dense"] = gp.write_dense(panel, ctx.drops("dense"))
+        rec["rows"] = {k: pq.read_metadata(p).num_rows for k, p in files.items()}
+
+
+def backfill(ctx: Context, meter: Meter) -> None:
+    from dyadcast.warehouse import open_warehouse
+
+    ws = new_workspace(ctx.ws_dir("base"))
+    with open_warehouse(ws.warehouse_path) as con:
+        _ingest(meter, ws, con, sorted(ctx.drops("history").iterdir()), "backfill_ingest")
+    meter.extra["warehouse_mb"] = folder_mb(ws.root)
+
+
+def backfill_dense(ctx: Context, meter: Meter) -> None:
+    from dyadcast.warehouse import open_warehouse
+
+    ws = new_workspace(ctx.ws_dir("dense"))
+    try:
+        with open_warehouse(ws.warehouse_path) as con:
+            _ingest(meter, ws, con, sorted(ctx.drops("dense").iterdir()), "dense_flows_ingest")
+    finally:
+        shutil.rmtree(ws.root, ignore_errors=True)
+
+
+def _feature_args(ctx: Context) -> tuple[date, date, int, date]:
+    cutoff = ctx.last_history_month
+    return cutoff, ctx.as_of(cutoff), ctx.config().horizon, ctx.window_start(cutoff)
+
+
+def _sample(frame: pd.DataFrame, ctx: Context) -> pd.DataFrame:
+    dyads = frame[["origin", "destination"]].drop_duplicates().sample(
+        n=min(SAMPLE_DYADS, len(frame)), random_state=ctx.spec.seed)
+    return frame.merge(dyads, on=["origin", "destination"])
+
+
+def features_pandas(ctx: Context, meter: Meter) -> None:
+    from dyadcast.warehouse import open_warehouse
+
+    cutoff, as_of, horizon, start = _feature_args(ctx)
+    with open_warehouse(ctx.ws("base").warehouse_path, read_only=True) as con, \
+            meter.stage("pandas_load_raw") as rec:
+        raw = pandas_features.load_raw(con)
+        rec["rows"] = int(len(raw["flows"]))
+    with meter.stage("pandas_features", cutoff=format_month(cutoff), as_of=str(as_of)) as rec:
+        panel = pandas_features.dense_panel(raw, cutoff, as_of)
+        frame = pandas_features.dyad_features(panel, pandas_features.visible(raw["attributes"], as_of), horizon, start)
+        rec.update(panel_rows=int(len(panel)), rows=int(len(frame)), columns=int(frame.shape[1]))
+    _sample(frame, ctx).to_parquet(ctx.work / "pandas_sample.parquet")
+
+
+def features_sql(ctx: Context, meter: Meter) -> None:
+    """The dyad_features macro alone (what the pandas baseline computes), then the value check."""
+    from dyadcast.warehouse import open_warehouse
+
+    cutoff, as_of, horizon, start = _feature_args(ctx)
+    with open_warehouse(ctx.ws("base").warehouse_path) as con, \
+            meter.stage("sql_dyad_features", note="the dyad_features macro to Arrow, no Python columns") as rec:
+        table = con.sql("SELECT * FROM dyad_features(?, ?, ?, ?)", params=[as_of, cutoff, horizon, start]
+                        ).to_arrow_table()
+        rec.update(rows=table.num_rows, columns=table.num_columns)
+    sample_path = ctx.work / "pandas_sample.parquet"
+    if sample_path.exists():
+        expected = pd.read_parquet(sample_path)
+        got = pandas_features.frame_from_arrow(table, horizon).merge(
+            expected[["origin", "destination"]].drop_duplicates(), on=["origin", "destination"])
+        meter.extra["pandas_vs_sql"] = pandas_features.compare(expected, got[list(expected.columns)])
+
+
+def seed(ctx: Context, meter: Meter, n_runs: int) -> None:
+    """ws_<n>: the history plus `n_runs` stored runs (two models per month), in the state a monthly user has.
+
+    The two runs of the month six before the newest are scored for real (all their targets but one are
+    known); every other run gets a copy of that scored state (seed_runs.copy_scored_state explains why).
+    """
+    from dyadcast.scoring import score_pending
+    from dyadcast.warehouse import open_warehouse
+
+    clone(ctx.ws_dir("base"), ctx.ws_dir(str(n_runs)))
+    ws = ctx.ws(str(n_runs))
+    newest = ctx.last_history_month
+    runs = plan(newest, n_runs, CYCLE_MODELS)
+    template_cutoff = add_months(newest, -(ctx.config().horizon - 1))
+    as_of = {cutoff: ctx.as_of(cutoff) for cutoff, _ in runs}
+    with open_warehouse(ws.warehouse_path) as con:
+        with meter.stage("source_forecast", note="one forecast-shaped frame, copied into every run") as rec:
+            forecast = source_forecast(con, newest, ctx.as_of(newest), ctx.config().horizon)
+            rec["rows"] = int(len(forecast))
+        with meter.stage("write_template_runs"):
+            templates = seed_runs(con, ws.snapshot_store(), forecast,
+                                  [r for r in runs if r[0] == template_cutoff], as_of)
+        with meter.stage("score_template_runs", note="genuine scoring of the two template runs") as rec:
+            result = score_pending(con, ws.accuracy_store())
+            rec.update(rows=result.rows_written, targets=result.targets_checked)
+        with meter.stage(f"write_{n_runs - len(templates)}_more_runs") as rec:
+            others = seed_runs(con, ws.snapshot_store(), forecast, [r for r in runs if r[0] != template_cutoff], as_of)
+            rec["forecast_rows"] = int(len(forecast) * n_runs)
+        with meter.stage("copy_scored_state") as rec:
+            rec["rows"] = copy_scored_state(con, ws.accuracy_store(), {t.model: t.run_id for t in templates},
+                                            [r.run_id for r in others], newest)
+        counts = {t: con.execute(f"SELECT count(*) FROM {t}").fetchall()[0][0]
+                  for t in ("snapshot_runs", "forecast_rows", "accuracy_rows", "scoring_checks")}
+    meter.extra.update(workspace_mb=folder_mb(ws.root), table_rows=counts)
+
+
+def score_new_month(ctx: Context, meter: Meter, n_runs: int) -> None:
+    """Ingest the new month's drop, then time the scoring it triggers and the report after it."""
+    from dyadcast.report import build_report
+    from dyadcast.scoring import score_pending
+    from dyadcast.warehouse import open_warehouse
+
+    ws = ctx.ws(str(n_runs))
+    with open_warehouse(ws.warehouse_path) as con:
+        _ingest(meter, ws, con, sorted(ctx.drops("month").iterdir()), "monthly_ingest")
+        stored = con.execute("SELECT count(*) FROM snapshot_runs").fetchall()[0][0]
+        with meter.stage(f"score_{n_runs}_stored", stored_runs=int(stored)) as rec:
+            result = score_pending(con, ws.accuracy_store())
+            rec.update(rows=result.rows_written, runs_scored=len(result.runs_scored), targets=result.targets_checked)
+        with meter.stage(f"report_{n_runs}_stored", note="the report reads the whole accuracy log"):
+            build_report(con, ws, ctx.new_month)
+
+
+def monthly_cycle(ctx: Context, meter: Meter) -> None:
+    """The monthly cycle as the flow runs it (flows/monthly_cycle.py), stage by stage, without Prefect.
+
+    Same calls as flows/steps.py; only the order differs: models other than persistence are fitted after the
+    score and report steps (see the comment below).
+    """
+    from dyadcast import cycle
+    from dyadcast.report import build_report
+    from dyadcast.scoring import score_pending
+    from dyadcast.warehouse import open_warehouse
+
+    ws = ctx.ws("cycle")
+    config = ws.config()
+    cutoff = ctx.new_month
+    with open_warehouse(ws.warehouse_path) as con:
+        _ingest(meter, ws, con, sorted(ctx.drops("month").iterdir()), "monthly_ingest")
+        with meter.stage("features") as rec:
+            data = cycle.prepare(con.cursor(), config, cutoff, ctx.as_of(cutoff), progress=_quiet)
+            rec.update(rows=int(len(data.train) + len(data.rows)), active_train_rows=int(len(data.active_train)),
+                       dyads=int(len(data.rows)), dormant=int(len(data.dormant_rows)))
+        names = cycle.models_to_run(config)
+        for name in names[:1]:  # persistence first; the fits of slow models run last (see below)
+            _fit_and_snapshot(meter, ws, con, data, config, name)
+        with meter.stage("score") as rec:
+            scored = score_pending(con, ws.accuracy_store())
+            rec.update(rows=scored.rows_written, runs_scored=len(scored.runs_scored))
+        with meter.stage("report"):
+            build_report(con, ws, cutoff)
+        # Measured last so that a fit stopped by the time cap leaves every other stage measured; the sum of the
+        # stages does not depend on their order.
+        for name in names[1:]:
+            _fit_and_snapshot(meter, ws, con, data, config, name)
+
+
+def _fit_and_snapshot(meter: Meter, ws: Workspace, con: Any, data: Any, config: Config, name: str) -> None:
+    from dyadcast import cycle
+    from dyadcast.snapshots import index_snapshot
+
+    with meter.stage(f"fit_forecast_{name}") as rec:
+        result = cycle.fit_and_forecast(name, data, config)
+        rec["timings"] = {k: round(v, 2) for k, v in result.metadata["timings"].items()}
+    with meter.stage(f"snapshot_{name}") as rec:
+        ref = cycle.write_forecast(ws.snapshot_store(), data, result)
+        rec["indexed_rows"] = index_snapshot(con, ref, data.run_kind, data.as_of)
+    if name == "tweedie_gbm":
+        meter.extra["tweedie_fitted_state"] = result.metadata["fitted_state"]
+
+
+def _quiet(_: str) -> None:
+    return None
+
+
+STAGES: dict[str, Callable[[Context, Meter], None]] = {
+    "generate": generate,
+    "backfill": backfill,
+    "backfill_dense": backfill_dense,
+    "features_pandas": features_pandas,
+    "features_sql": features_sql,
+    "seed_12": lambda ctx, meter: seed(ctx, meter, 12),
+    "seed_120": lambda ctx, meter: seed(ctx, meter, 120),
+    "score_12": lambda ctx, meter: score_new_month(ctx, meter, 12),
+    "score_120": lambda ctx, meter: score_new_month(ctx, meter, 120),
+    "cycle": monthly_cycle,
+}
+
+
+def run_child(name: str, ctx: Context) -> int:
+    """Entry point of a child process: run one stage, write results/<name>.json."""
+    from extra_stages import EXTRA_STAGES
+
+    stages = {**STAGES, **EXTRA_STAGES}
+    meter = Meter(ctx.work / "results" / f"{name}.json")
+    meter.extra["pid"] = os.getpid()
+    started = time.perf_counter()
+    try:
+        stages[name](ctx, meter)
+    except Exception as exc:  # recorded for the table; the traceback goes to the log
+        meter.extra["error"] = f"{type(exc).__name__}: {exc}"
+        import traceback
+
+        traceback.print_exc(file=sys.stderr)
+        return 1
+    finally:
+        meter.extra["stage_seconds"] = round(time.perf_counter() - started, 2)
+        meter.close()
+    return 0
+
+
+def context(work: Path, small: bool, model_budget_s: float = 120.0) -> Context:
+    spec = gp.SMALL if small else gp.FULL
+    return Context(work=work, spec=spec, scale="small" if small else "full", model_budget_s=model_budget_s)
+
+
+def with_spec(ctx: Context, spec: gp.PanelSpec) -> Context:
+    return replace(ctx, spec=spec)

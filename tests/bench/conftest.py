@@ -1,0 +1,10 @@
+"""Make the benchmark modules in bench/ importable (they are scripts, not part of the package)."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+BENCH = Path(__file__).resolve().parents[2] / "bench"
+if str(BENCH) not in sys.path:
+    sys.path.insert(0, str(BENCH))
