@@ -108,7 +108,7 @@ def _cpu_ratio(top: dict[str, Any] | None, bottom: dict[str, Any] | None) -> str
 
 
 def targets(groups: dict[str, dict[str, Any]], total_wall: float, small: bool,
-            budget: float = 870.0) -> list[dict[str, Any]]:
+            budget: float = 840.0) -> list[dict[str, Any]]:
     """Each figure against its target (the issue's numbers; at --small they are only indicative)."""
     out = []
     dense = _find(groups, "backfill_dense", "dense_flows_ingest")
@@ -178,7 +178,7 @@ def parse(argv: list[str] | None) -> argparse.Namespace:
     parser.add_argument("--out", type=Path, default=BENCH / "output", help="folder for results and work files")
     parser.add_argument("--stages", default="", help="comma-separated subset of stages (needs a kept work folder)")
     parser.add_argument("--keep", action="store_true", help="keep the work folder (workspaces, drops) afterwards")
-    parser.add_argument("--budget", type=float, default=870.0, help="stop starting stages after this many seconds (0: no limit)")
+    parser.add_argument("--budget", type=float, default=840.0, help="stop starting stages after this many seconds (0: no limit)")
     parser.add_argument("--model-budget", type=float, default=None, help="seconds per extra model (default 120/30)")
     parser.add_argument("--cap-factor", type=float, default=1.0, help="multiply every stage's time cap")
     parser.add_argument("--child", default="", help=argparse.SUPPRESS)
