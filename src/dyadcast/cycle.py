@@ -9,7 +9,7 @@ from __future__ import annotations
 import json
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import date
 from typing import Any
 
@@ -63,7 +63,7 @@ def models_to_run(config: Config, requested: Sequence[str] | None = None) -> lis
 
 def newest_cutoff(con: duckdb.DuckDBPyConnection) -> date:
     """The newest month with published flows: the default cutoff of a scheduled run."""
-    value = con.execute("SELECT max(month) FROM raw_flows").fetchone()[0]
+    value = con.execute("SELECT max(month) FROM raw_flows").fetchall()[0][0]
     if value is None:
         raise CycleError("no flows have been loaded yet; drop a flows file into the inbox and run again")
     return value
@@ -71,7 +71,7 @@ def newest_cutoff(con: duckdb.DuckDBPyConnection) -> date:
 
 def first_publication(con: duckdb.DuckDBPyConnection, cutoff: date) -> date:
     """When the cutoff month's arrivals were first published: the as-of date of an honest backtest."""
-    value = con.execute("SELECT min(published_on) FROM raw_flows WHERE month = ?", [cutoff]).fetchone()[0]
+    value = con.execute("SELECT min(published_on) FROM raw_flows WHERE month = ?", [cutoff]).fetchall()[0][0]
     if value is None:
         raise CycleError(f"no flows were ever published for {format_month(cutoff)}; pick an earlier cutoff")
     return value
@@ -97,12 +97,16 @@ def prepare(
         )
     if train.empty:
         raise CycleError(f"no training history before {format_month(cutoff)}; load earlier months first")
+    # the full frame is now held twice (train + rows are copies): keep only its schema, so the cycle's
+    # peak memory is one frame rather than two (bench/README.md, memory of the cycle)
+    features = replace(features, frame=frame.iloc[0:0])
+    del frame
     built = time.perf_counter()
     active_train, active_rows, dormant_rows = split_dormant(train, rows, config.zero_lookback_months)
     dormant = DormantForecaster(config.horizon, config.quantiles, config.zero_lookback_months).fit(train)
     dormant_forecast = dormant.predict(dormant_rows) if len(dormant_rows) else pd.DataFrame()
     progress(
-        f"  features for {format_month(cutoff)} as of {as_of}: {len(frame):,} rows, {len(rows):,} dyads "
+        f"  features for {format_month(cutoff)} as of {as_of}: {len(train) + len(rows):,} rows, {len(rows):,} dyads "
         f"({len(dormant_rows):,} dormant), {len(features.feature_names)} features"
     )
     return PreparedData(
@@ -200,13 +204,13 @@ def model_options(con: duckdb.DuckDBPyConnection, name: str, mode: str, cutoff: 
         return {}
     if mode == "fit":
         return {"tune": True}
-    row = con.execute(
+    rows = con.execute(
         "SELECT metadata_json FROM snapshot_runs WHERE model = ? AND cutoff < ? "
         "ORDER BY cutoff DESC, created_at DESC LIMIT 1", [name, cutoff]
-    ).fetchone()
-    if row is None:
+    ).fetchall()
+    if not rows:
         return {"tune": True}
-    state = json.loads(row[0]).get("fitted_state") or {}
+    state = json.loads(rows[0][0]).get("fitted_state") or {}
     return {"tune": False, "params": state} if state else {"tune": True}
 
 

@@ -117,3 +117,16 @@ def finalize_forecast(frame: pd.DataFrame, quantiles: Sequence[float]) -> pd.Dat
 def target_months(rows: pd.DataFrame, horizon: int) -> pd.Series:
     """Target month t+h for anchor month t (first-of-month timestamps)."""
     return (pd.to_datetime(rows["month"]) + pd.DateOffset(months=horizon)).dt.as_unit("us")
+
+
+def forecast_frame(rows: pd.DataFrame, horizon: int, mean: np.ndarray, q: np.ndarray, p_positive: np.ndarray,
+                   quantiles: Sequence[float]) -> pd.DataFrame:
+    """The per-horizon frame `_predict_horizon` returns; one builder so every model emits the same columns."""
+    out = pd.DataFrame({
+        "origin": rows["origin"].to_numpy(), "destination": rows["destination"].to_numpy(),
+        "horizon": horizon, "target_month": target_months(rows, horizon).to_numpy(), "mean": mean,
+    })
+    for j, level in enumerate(quantiles):
+        out[quantile_column(level)] = q[:, j]
+    out["p_positive"] = p_positive
+    return out

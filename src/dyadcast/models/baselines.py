@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 
 from dyadcast.config import DEFAULT_QUANTILES
-from dyadcast.models.base import CountModel, quantile_column, target_column, target_months
+from dyadcast.models.base import CountModel, forecast_frame, target_column
 from dyadcast.models.design import horizon_rows, subsample
 
 BUCKET_EDGES: tuple[float, ...] = (0.0, 1.0, 2.0, 4.0, 10.0, 30.0, 100.0, 300.0, np.inf)
@@ -112,14 +112,7 @@ class _Baseline(CountModel):
     def _predict_horizon(self, rows: pd.DataFrame, horizon: int) -> pd.DataFrame:
         point = self.point(rows, horizon)
         q, p_pos = self.residual_[horizon].predict(point)
-        out = pd.DataFrame({
-            "origin": rows["origin"].to_numpy(), "destination": rows["destination"].to_numpy(),
-            "horizon": horizon, "target_month": target_months(rows, horizon).to_numpy(), "mean": point,
-        })
-        for j, level in enumerate(self.quantiles):
-            out[quantile_column(level)] = q[:, j]
-        out["p_positive"] = p_pos
-        return out
+        return forecast_frame(rows, horizon, point, q, p_pos, self.quantiles)
 
     def fitted_state(self) -> dict[str, Any]:
         return {"residual_distribution": {str(h): r.state() for h, r in self.residual_.items()}}

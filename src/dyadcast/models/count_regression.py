@@ -56,7 +56,7 @@ from dyadcast.distributions import (
     zinb_quantiles,
 )
 from dyadcast.models import mle
-from dyadcast.models.base import CountModel, quantile_column, target_column, target_months
+from dyadcast.models.base import CountModel, forecast_frame, target_column
 from dyadcast.models.design import Design, horizon_rows, present_columns, subsample
 from dyadcast.models.mle import FitFailed, ModelFallbackWarning
 from dyadcast.models.poisson_glm import MAX_ETA
@@ -308,14 +308,7 @@ class _CountRegression(CountModel):
         count, zero = self.designs_[horizon]
         X, Z = count.transform(rows, horizon), zero.transform(rows, horizon)
         mean, q, p_pos = self.fits_[horizon].predict(X, Z, self.quantiles)
-        out = pd.DataFrame({
-            "origin": rows["origin"].to_numpy(), "destination": rows["destination"].to_numpy(),
-            "horizon": horizon, "target_month": target_months(rows, horizon).to_numpy(), "mean": mean,
-        })
-        for j, level in enumerate(self.quantiles):
-            out[quantile_column(level)] = q[:, j]
-        out["p_positive"] = p_pos
-        return out
+        return forecast_frame(rows, horizon, mean, q, p_pos, self.quantiles)
 
     def fitted_state(self) -> dict[str, Any]:
         state = {}

@@ -31,7 +31,7 @@ import pandas as pd
 from dyadcast.config import DEFAULT_QUANTILES
 from dyadcast.distributions import fit_nb_alpha, nbinom_p_positive, nbinom_quantiles
 from dyadcast.models import mle
-from dyadcast.models.base import CountModel, quantile_column, target_column, target_months
+from dyadcast.models.base import CountModel, forecast_frame, target_column
 from dyadcast.models.design import Design, active_dyads, horizon_rows, in_dyads, subsample
 from dyadcast.models.mle import ModelFallbackWarning, start_from
 
@@ -139,14 +139,7 @@ class PoissonGLM(CountModel):
         mu = self.predict_mean(rows, horizon)
         alpha = self.alpha_[horizon]
         q = nbinom_quantiles(mu, alpha, self.quantiles)
-        out = pd.DataFrame({
-            "origin": rows["origin"].to_numpy(), "destination": rows["destination"].to_numpy(),
-            "horizon": horizon, "target_month": target_months(rows, horizon).to_numpy(), "mean": mu,
-        })
-        for j, level in enumerate(self.quantiles):
-            out[quantile_column(level)] = q[:, j]
-        out["p_positive"] = nbinom_p_positive(mu, alpha)
-        return out
+        return forecast_frame(rows, horizon, mu, q, nbinom_p_positive(mu, alpha), self.quantiles)
 
     def fitted_state(self) -> dict[str, Any]:
         return {str(h): {
