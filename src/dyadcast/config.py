@@ -44,8 +44,8 @@ class Config:
     seed: int = 20261201
     webhook_url: str = ""
     dask_address: str = ""
-    snapshot_store: str = ""  # empty: DIR/snapshots; any fsspec URL otherwise
-    accuracy_store: str = ""  # empty: DIR/accuracy
+    snapshot_store: str = ""  # empty: DIR/snapshots; a local path (relative to DIR) or an fsspec URL otherwise
+    accuracy_store: str = ""  # empty: DIR/accuracy; as snapshot_store
     schedule: ScheduleConfig = field(default_factory=ScheduleConfig)
     signals: SignalConfig = field(default_factory=SignalConfig)
     # Per-model constructor options, e.g. [model_options.zinb] max_rows = 20000
@@ -89,7 +89,21 @@ def validate(config: Config) -> Config:
     unknown = sorted({*config.models, *config.model_options, config.primary_model} - set(MODELS))
     if unknown:
         raise ConfigError(f"unknown model name(s) {unknown}; available: {sorted(MODELS)}")
+    _validate_stores(config)
     return config
+
+
+def _validate_stores(config: Config) -> None:
+    """Syntax only: a missing backend (s3fs, gcsfs, adlfs) is reported when the store is first used."""
+    from dyadcast.stores import StoreError, check_store_text
+
+    for key, value in (("snapshot", config.snapshot_store), ("accuracy", config.accuracy_store)):
+        if not isinstance(value, str):
+            raise ConfigError(f"[stores] {key} = {value!r}: give a quoted path or URL, or \"\" for the default")
+        try:
+            check_store_text(value)
+        except StoreError as exc:
+            raise ConfigError(f"[stores] {key} = {value!r}: {exc}") from exc
 
 
 def load_config(path: Path) -> Config:
@@ -153,7 +167,10 @@ cron = "0 6 5 * *"
 timezone = "UTC"
 
 [stores]
-# Where snapshots and accuracy rows go. Empty: the workspace folders. Any fsspec URL otherwise.
+# Where snapshots and accuracy batches go. Empty: the workspace folders snapshots/ and accuracy/.
+# Otherwise a local folder (relative to this workspace) or an fsspec URL such as s3://bucket/dyadcast/snapshots
+# (install the backend, e.g. s3fs, and give credentials through its environment variables). The warehouse
+# file always stays in this workspace.
 snapshot = ""
 accuracy = ""
 

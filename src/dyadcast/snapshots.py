@@ -1,7 +1,9 @@
 """Immutable forecast snapshots: Hive-partitioned Parquet plus metadata, indexed in the warehouse.
 
-A snapshot is written to a hidden temporary folder and renamed into place, so a reader never sees a
-half-written run; an existing run folder is never touched again.
+In a local store a snapshot is written to a hidden temporary folder and renamed into place, so a reader never
+sees a half-written run. An object store has no rename: the files are staged locally and uploaded one whole
+object each, `metadata.json` last, and a run without it counts as absent (`dyadcast.stores`). Either way an
+existing run is never touched again.
 """
 
 from __future__ import annotations
@@ -11,6 +13,7 @@ import os
 import platform
 import secrets
 import shutil
+import tempfile
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime
@@ -26,6 +29,7 @@ import pyarrow.parquet as pq
 from dyadcast import __version__
 from dyadcast.models.base import quantile_column
 from dyadcast.months import format_month
+from dyadcast.stores import StorePath, commit_folder, list_runs, store_fs, store_location
 
 FORECAST_FILE = "forecast.parquet"
 METADATA_FILE = "metadata.json"
@@ -44,7 +48,7 @@ class SnapshotRef:
     run_id: str
     cutoff: date
     model: str
-    path: Path
+    path: Path | StorePath
 
 
 def new_run_id(now: datetime | None = None) -> str:
@@ -64,8 +68,9 @@ def library_versions() -> dict[str, str]:
     return versions
 
 
-def snapshot_dir(store: Path | str, cutoff: date, model: str, run_id: str) -> Path:
-    return Path(store) / f"cutoff={format_month(cutoff)}" / f"model={model}" / f"run={run_id}"
+def snapshot_dir(store: Path | str, cutoff: date, model: str, run_id: str) -> Path | StorePath:
+    """The run folder: a `Path` in a local store, a `StorePath` (URL) in an object store."""
+    return store_location(store) / f"cutoff={format_month(cutoff)}" / f"model={model}" / f"run={run_id}"
 
 
 def _json_default(value: Any) -> Any:
@@ -89,8 +94,10 @@ def write_snapshot(
     metadata: dict[str, Any],
     write_artifacts: Callable[[Path], Sequence[str]] | None = None,
 ) -> SnapshotRef:
-    """Write forecast.parquet, metadata.json and artefacts atomically (temp folder, then rename)."""
+    """Write forecast.parquet, artefacts and metadata.json so that the run appears complete or not at all."""
     final = snapshot_dir(store, cutoff, model, run_id)
+    if isinstance(final, StorePath):
+        return _write_to_object_store(final, cutoff, model, run_id, forecast, metadata, write_artifacts)
     if final.exists():
         raise SnapshotExistsError(f"{final} already exists; snapshots are immutable, use a new run id")
     final.parent.mkdir(parents=True, exist_ok=True)
@@ -99,29 +106,52 @@ def write_snapshot(
         shutil.rmtree(tmp)
     tmp.mkdir()
     try:
-        table = pa.Table.from_pandas(forecast.reset_index(drop=True), preserve_index=False)
-        pq.write_table(table, tmp / FORECAST_FILE, compression="zstd")
-        artifact_names: list[str] = []
-        if write_artifacts is not None:
-            (tmp / ARTIFACTS_DIR).mkdir()
-            artifact_names = list(write_artifacts(tmp / ARTIFACTS_DIR))
-        meta = {
-            **metadata,
-            "run_id": run_id,
-            "cutoff": format_month(cutoff),
-            "model": model,
-            "rows": int(len(forecast)),
-            "artifacts": artifact_names,
-            "written_at": datetime.now(UTC).isoformat(timespec="seconds"),
-            "versions": library_versions(),
-        }
-        (tmp / METADATA_FILE).write_text(json.dumps(meta, indent=2, default=_json_default), encoding="utf-8")
+        _write_files(tmp, cutoff, model, run_id, forecast, metadata, write_artifacts)
         _fsync_dir(tmp)
         os.rename(tmp, final)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return SnapshotRef(run_id=run_id, cutoff=cutoff, model=model, path=final)
+
+
+def _write_to_object_store(
+    final: StorePath, cutoff: date, model: str, run_id: str, forecast: pd.DataFrame, metadata: dict[str, Any],
+    write_artifacts: Callable[[Path], Sequence[str]] | None,
+) -> SnapshotRef:
+    """Stage the run locally (models write artefacts to a local folder), then upload it with the marker last."""
+    if (final / METADATA_FILE).exists():
+        raise SnapshotExistsError(f"{final} already exists; snapshots are immutable, use a new run id")
+    with tempfile.TemporaryDirectory(prefix=f"dyadcast-snapshot-{run_id}-") as staging:
+        _write_files(Path(staging), cutoff, model, run_id, forecast, metadata, write_artifacts)
+        try:
+            commit_folder(Path(staging), final, marker=METADATA_FILE)
+        except FileExistsError as exc:  # another writer committed the same run id between check and upload
+            raise SnapshotExistsError(str(exc)) from exc
+    return SnapshotRef(run_id=run_id, cutoff=cutoff, model=model, path=final)
+
+
+def _write_files(
+    folder: Path, cutoff: date, model: str, run_id: str, forecast: pd.DataFrame, metadata: dict[str, Any],
+    write_artifacts: Callable[[Path], Sequence[str]] | None,
+) -> None:
+    table = pa.Table.from_pandas(forecast.reset_index(drop=True), preserve_index=False)
+    pq.write_table(table, folder / FORECAST_FILE, compression="zstd")
+    artifact_names: list[str] = []
+    if write_artifacts is not None:
+        (folder / ARTIFACTS_DIR).mkdir()
+        artifact_names = list(write_artifacts(folder / ARTIFACTS_DIR))
+    meta = {
+        **metadata,
+        "run_id": run_id,
+        "cutoff": format_month(cutoff),
+        "model": model,
+        "rows": int(len(forecast)),
+        "artifacts": artifact_names,
+        "written_at": datetime.now(UTC).isoformat(timespec="seconds"),
+        "versions": library_versions(),
+    }
+    (folder / METADATA_FILE).write_text(json.dumps(meta, indent=2, default=_json_default), encoding="utf-8")
 
 
 def _fsync_dir(directory: Path) -> None:
@@ -132,11 +162,18 @@ def _fsync_dir(directory: Path) -> None:
 
 
 def read_metadata(path: Path | str) -> dict[str, Any]:
-    return json.loads((Path(path) / METADATA_FILE).read_text(encoding="utf-8"))
+    location = store_location(path)
+    if isinstance(location, StorePath):
+        return json.loads((location / METADATA_FILE).read_bytes())
+    return json.loads((location / METADATA_FILE).read_text(encoding="utf-8"))
 
 
 def read_forecast(path: Path | str) -> pd.DataFrame:
-    return pq.read_table(Path(path) / FORECAST_FILE).to_pandas()
+    location = store_location(path)
+    if isinstance(location, StorePath):
+        with (location / FORECAST_FILE).open("rb") as handle:
+            return pq.read_table(handle).to_pandas()
+    return pq.read_table(location / FORECAST_FILE).to_pandas()
 
 
 def index_snapshot(con: duckdb.DuckDBPyConnection, ref: SnapshotRef, run_kind: str, as_of: date) -> int:
@@ -172,9 +209,13 @@ def index_snapshot(con: duckdb.DuckDBPyConnection, ref: SnapshotRef, run_kind: s
     return len(rows)
 
 
-def list_snapshots(store: Path | str) -> list[Path]:
-    """Complete run folders only (temporary folders start with a dot and are skipped)."""
-    return sorted(p for p in Path(store).glob("cutoff=*/model=*/run=*") if (p / METADATA_FILE).is_file())
+def list_snapshots(store: Path | str) -> list[Path] | list[StorePath]:
+    """Complete run folders only: temporary folders start with a dot; object-store runs need their marker."""
+    location = store_location(store)
+    if isinstance(location, StorePath):
+        fs, _ = store_fs(location)
+        return [StorePath(fs.unstrip_protocol(p)) for p in list_runs(location)]
+    return sorted(p for p in location.glob("cutoff=*/model=*/run=*") if (p / METADATA_FILE).is_file())
 
 
 def reindex_missing(con: duckdb.DuckDBPyConnection, store: Path | str) -> int:
@@ -182,6 +223,8 @@ def reindex_missing(con: duckdb.DuckDBPyConnection, store: Path | str) -> int:
     known = {r[0] for r in con.execute("SELECT run_id FROM snapshot_runs").fetchall()}
     added = 0
     for path in list_snapshots(store):
+        if path.name.removeprefix("run=") in known:  # the folder is named after the run: no read needed
+            continue
         meta = read_metadata(path)
         if meta["run_id"] in known:
             continue

@@ -7,6 +7,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from dyadcast.config import DEFAULT_TOML, Config, load_config
+from dyadcast.stores import resolve_store
 
 CONFIG_NAME = "dyadcast.toml"
 SUBDIRS = ("inbox", "archive", "quarantine", "snapshots", "accuracy", "reports")
@@ -64,10 +65,15 @@ class Workspace:
         return load_config(self.config_path)
 
     def snapshot_store(self) -> str:
-        return self.config().snapshot_store or str(self.snapshots)
+        """`[stores] snapshot`: DIR/snapshots when empty, a local path (relative to DIR) or an fsspec URL.
+
+        Raises `dyadcast.stores.StoreError` (saying what to install) when the URL's backend is missing.
+        """
+        return resolve_store(self.config().snapshot_store, self.snapshots, self.root)
 
     def accuracy_store(self) -> str:
-        return self.config().accuracy_store or str(self.accuracy)
+        """`[stores] accuracy`: DIR/accuracy when empty, otherwise as `snapshot_store`."""
+        return resolve_store(self.config().accuracy_store, self.accuracy, self.root)
 
 
 def init_workspace(directory: str | os.PathLike[str]) -> Workspace:

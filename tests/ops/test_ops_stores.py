@@ -3,7 +3,9 @@ metadata file written last is the commit marker that makes a run visible."""
 
 from __future__ import annotations
 
+import importlib.util
 import os
+import re
 import time
 import uuid
 from datetime import date
@@ -103,3 +105,58 @@ def test_unpublished_accuracy_batch_is_removed_published_ones_stay(tmp_path: Pat
     assert list_batches(tmp_path) == [published]
     assert clean_temporary(tmp_path, globs=ACCURACY_TEMP_GLOBS, log=lambda _m: None) == [str(leftover)]
     assert published.exists() and not leftover.exists()
+
+
+@pytest.mark.parametrize(
+    ("value", "advice"),
+    [
+        ("nosuch://bucket/snapshots", r"knows no protocol 'nosuch'; use a local folder, file:///abs/path"),
+        ("https://example.org/snapshots", r"read-only; a store must take writes"),
+        ("simplecache::s3://bucket/snapshots", r"chained URLs .* not supported"),
+        ("file://relative/snapshots", r"absolute path with three slashes: file:///abs/path"),
+        ("s3://", r"name a bucket and a prefix after s3://"),
+        ("s3://bucket/snapshots?versionId=3", r"no options in the URL.*environment variables"),
+    ],
+)
+def test_store_urls_are_checked_when_the_config_is_read(tmp_path: Path, value: str, advice: str) -> None:
+    from dyadcast.config import ConfigError
+    from dyadcast.workspace import init_workspace
+
+    ws = init_workspace(tmp_path / "ws")
+    ws.config_path.write_text(f'[stores]\nsnapshot = "{value}"\n', encoding="utf-8")
+    with pytest.raises(ConfigError, match=r"\[stores\] snapshot = '" + re.escape(value) + "': .*" + advice):
+        ws.config()
+    ws.config_path.write_text("[stores]\naccuracy = 7\n", encoding="utf-8")
+    with pytest.raises(ConfigError, match=r"\[stores\] accuracy = 7: give a quoted path or URL"):
+        ws.config()
+
+
+def test_missing_backend_says_what_to_install(tmp_path: Path) -> None:
+    from dyadcast.stores import StoreError
+    from dyadcast.workspace import init_workspace
+
+    if importlib.util.find_spec("s3fs") is not None:
+        pytest.skip("s3fs is installed here; the message is for environments without it")
+    ws = init_workspace(tmp_path / "ws")
+    ws.config_path.write_text('[stores]\naccuracy = "s3://bucket/dyadcast/accuracy"\n', encoding="utf-8")
+    assert ws.config().accuracy_store == "s3://bucket/dyadcast/accuracy"  # the syntax is fine
+    with pytest.raises(StoreError, match=r"Install s3fs to access S3 \(pip install it .*credentials come from"):
+        ws.accuracy_store()
+
+
+def test_local_stores_keep_the_folder_layout(tmp_path: Path) -> None:
+    """Empty = the workspace folder; a relative path is under the workspace; file:/// is a plain folder."""
+    from dyadcast.workspace import init_workspace
+
+    ws = init_workspace(tmp_path / "ws")
+    assert ws.snapshot_store() == str(ws.snapshots) and ws.accuracy_store() == str(ws.accuracy)
+    elsewhere = tmp_path / "elsewhere"
+    ws.config_path.write_text(f'[stores]\nsnapshot = "shared/snaps"\naccuracy = "file://{elsewhere}"\n',
+                              encoding="utf-8")
+    assert ws.snapshot_store() == str(ws.root / "shared" / "snaps")
+    assert ws.accuracy_store() == str(elsewhere)
+    plain = write_snapshot(tmp_path / "plain", date(2026, 1, 1), "persistence", "R1", _forecast(), {"as_of": "x"})
+    via_url = write_snapshot(f"file://{tmp_path / 'url'}", date(2026, 1, 1), "persistence", "R1", _forecast(),
+                             {"as_of": "x"})
+    assert isinstance(via_url.path, Path) and via_url.path == tmp_path / "url" / plain.path.relative_to(tmp_path / "plain")
+    assert sorted(p.name for p in via_url.path.iterdir()) == sorted(p.name for p in plain.path.iterdir())
