@@ -7,20 +7,30 @@ metadata that it is a benchmark copy.
 
 The source (`source_forecast`) is shaped exactly like a model's snapshot (every dyad and every origin,
 destination and world total, per horizon, with the five indexed quantiles) but is computed in one query
-from the last three reported months, so seeding costs seconds rather than a model fit.
+from the last three reported months, so seeding costs seconds rather than a model fit. The one exception is
+the newest tweedie_gbm run of the workspace the monthly cycle copies: a real fit (`bench/stages.py`), so the
+cycle refreshes from a genuine fitted state and boosters as a monthly user's workspace has them.
+
+`monthly_options` gives a model what a monthly run gives it (`cycle.model_options` in the configured mode).
 """
 
 from __future__ import annotations
 
+import json
 from collections.abc import Sequence
 from datetime import date
+from pathlib import Path
+from typing import Any
 
 import duckdb
 import numpy as np
 import pandas as pd
 
+from dyadcast import cycle
 from dyadcast.months import add_months, format_month
-from dyadcast.snapshots import SnapshotRef, index_snapshot, write_snapshot
+from dyadcast.snapshots import ARTIFACTS_DIR, SnapshotRef, index_snapshot, write_snapshot
+
+ARTIFACTS_KEY = "artifacts_dir"  # dyadcast.models.tweedie_gbm.ARTIFACTS_KEY (not imported: LightGBM is heavy)
 
 
 def source_forecast(con: duckdb.DuckDBPyConnection, cutoff: date, as_of: date, horizon: int) -> pd.DataFrame:
@@ -123,3 +133,32 @@ def copy_scored_state(con: duckdb.DuckDBPyConnection, accuracy_dir: str, templat
     con.execute("DROP TABLE _bench_map")
     con.execute("RESET memory_limit")
     return int(copied)
+
+
+def monthly_options(con: duckdb.DuckDBPyConnection, name: str, mode: str, cutoff: date) -> tuple[dict[str, Any], str]:
+    """`cycle.model_options(con, name, mode, cutoff)`, and where the stored model files came from.
+
+    Why the second part: a refresh continues last month's boosters only when it is told their folder
+    (`params["artifacts_dir"]`). When `cycle.model_options` does not pass it yet, the folder of the same
+    snapshot it read the state from is added here (same query), and the returned note says so, so the
+    benchmark's figure is never mistaken for what an unchanged cycle does.
+    """
+    options = cycle.model_options(con, name, mode, cutoff)
+    params = options.get("params")
+    if not params or ARTIFACTS_KEY in params:
+        return options, "cycle.model_options"
+    row = con.execute(
+        "SELECT path, metadata_json FROM snapshot_runs WHERE model = ? AND cutoff < ? "
+        "ORDER BY cutoff DESC, created_at DESC LIMIT 1", [name, cutoff]).fetchone()
+    if row is None or not json.loads(row[1]).get("artifacts"):
+        return options, "cycle.model_options (the stored snapshot has no model files)"
+    folder = str(Path(row[0]) / ARTIFACTS_DIR)
+    return ({**options, "params": {**params, ARTIFACTS_KEY: folder}},
+            "cycle.model_options + the snapshot's artifacts folder added by bench/seed_runs.py")
+
+
+def mode_of(options: dict[str, Any]) -> str:
+    """The mode a model ran in, from the options it was given."""
+    if options.get("params"):
+        return "refresh"
+    return "fit" if options.get("tune") else "n/a (no hyper-parameters)"

@@ -24,7 +24,7 @@ import pandas as pd
 import pandas_features
 import pyarrow.parquet as pq
 from meter import Meter
-from seed_runs import copy_scored_state, plan, seed_runs, source_forecast
+from seed_runs import copy_scored_state, mode_of, monthly_options, plan, seed_runs, source_forecast
 
 from dyadcast.config import DEFAULT_TOML, Config
 from dyadcast.months import add_months, format_month
@@ -35,6 +35,8 @@ CYCLE_MODELS = ("persistence", "tweedie_gbm")
 EXTRA_MODELS = ("seasonal_persistence", "rolling_mean", "poisson_glm", "negative_binomial", "hurdle_nb", "zinb",
                 "ppml_gravity", "ensemble")
 SAMPLE_DYADS = 300
+REFRESHED_MODEL = "tweedie_gbm"  # the cycle's model with a stored state; seed_12 gives it a genuine snapshot
+PREVIOUS_FIT_STAGE = f"previous_{REFRESHED_MODEL}_fit_forecast"
 
 
 @dataclass(frozen=True)
@@ -200,11 +202,13 @@ def features_sql(ctx: Context, meter: Meter) -> None:
         meter.extra["pandas_vs_sql"] = pandas_features.compare(expected, got[list(expected.columns)])
 
 
-def seed(ctx: Context, meter: Meter, n_runs: int) -> None:
+def seed(ctx: Context, meter: Meter, n_runs: int, genuine: bool = False) -> None:
     """ws_<n>: the history plus `n_runs` stored runs (two models per month), in the state a monthly user has.
 
     The two runs of the month six before the newest are scored for real (all their targets but one are
     known); every other run gets a copy of that scored state (seed_runs.copy_scored_state explains why).
+    `genuine` (ws_12, which the cycle stages copy): the newest tweedie_gbm run is a real one instead of a copy
+    (`previous_run`), so the cycle refreshes from a genuine fitted state and boosters.
     """
     from dyadcast.scoring import score_pending
     from dyadcast.warehouse import open_warehouse
@@ -212,7 +216,7 @@ def seed(ctx: Context, meter: Meter, n_runs: int) -> None:
     clone(ctx.ws_dir("base"), ctx.ws_dir(str(n_runs)))
     ws = ctx.ws(str(n_runs))
     newest = ctx.last_history_month
-    runs = plan(newest, n_runs, CYCLE_MODELS)
+    runs = [r for r in plan(newest, n_runs, CYCLE_MODELS) if not (genuine and r == (newest, REFRESHED_MODEL))]
     template_cutoff = add_months(newest, -(ctx.config().horizon - 1))
     as_of = {cutoff: ctx.as_of(cutoff) for cutoff, _ in runs}
     with open_warehouse(ws.warehouse_path) as con:
@@ -225,12 +229,15 @@ def seed(ctx: Context, meter: Meter, n_runs: int) -> None:
         with meter.stage("score_template_runs", note="genuine scoring of the two template runs") as rec:
             result = score_pending(con, ws.accuracy_store())
             rec.update(rows=result.rows_written, targets=result.targets_checked)
-        with meter.stage(f"write_{n_runs - len(templates)}_more_runs") as rec:
-            others = seed_runs(con, ws.snapshot_store(), forecast, [r for r in runs if r[0] != template_cutoff], as_of)
+        rest = [r for r in runs if r[0] != template_cutoff]
+        with meter.stage(f"write_{len(rest)}_more_runs") as rec:
+            others = seed_runs(con, ws.snapshot_store(), forecast, rest, as_of)
             rec["forecast_rows"] = int(len(forecast) * n_runs)
         with meter.stage("copy_scored_state") as rec:
             rec["rows"] = copy_scored_state(con, ws.accuracy_store(), {t.model: t.run_id for t in templates},
                                             [r.run_id for r in others], newest)
+        if genuine:
+            previous_run(ctx, meter, ws, con, newest)
         counts = {t: con.execute(f"SELECT count(*) FROM {t}").fetchall()[0][0]
                   for t in ("snapshot_runs", "forecast_rows", "accuracy_rows", "scoring_checks")}
     meter.extra.update(workspace_mb=folder_mb(ws.root), table_rows=counts)
@@ -285,20 +292,64 @@ def monthly_cycle(ctx: Context, meter: Meter) -> None:
         # stages does not depend on their order.
         for name in names[1:]:
             _fit_and_snapshot(meter, ws, con, data, config, name)
+    meter.extra["monthly_mode"] = config.monthly_mode
+    meter.extra[f"{REFRESHED_MODEL}_fit_mode"] = _previous_fit_line(ctx)
+
+
+def _previous_fit_line(ctx: Context) -> dict[str, Any] | str:
+    """The "fit" mode line of the same model at full scale: measured by seed_12 (one month earlier)."""
+    path = ctx.work / "results" / "seed_12.json"
+    records = json.loads(path.read_text()).get("records", []) if path.exists() else []
+    line = next((r for r in records if r.get("stage") == PREVIOUS_FIT_STAGE), None)
+    return {**line, "measured_in": f"seed_12, stage {PREVIOUS_FIT_STAGE}"} if line else "not measured (run seed_12)"
 
 
 def _fit_and_snapshot(meter: Meter, ws: Workspace, con: Any, data: Any, config: Config, name: str) -> None:
+    """Fit with the options a monthly run gives the model (its mode and the stored state), then snapshot."""
     from dyadcast import cycle
     from dyadcast.snapshots import index_snapshot
 
-    with meter.stage(f"fit_forecast_{name}") as rec:
-        result = cycle.fit_and_forecast(name, data, config)
+    options, source = monthly_options(con, name, config.monthly_mode, data.cutoff)
+    with meter.stage(f"fit_forecast_{name}", mode=mode_of(options), options_from=source) as rec:
+        result = cycle.fit_and_forecast(name, data, config, options)
         rec["timings"] = {k: round(v, 2) for k, v in result.metadata["timings"].items()}
+        rec.update(_refresh_record(result.metadata["fitted_state"]))
     with meter.stage(f"snapshot_{name}") as rec:
         ref = cycle.write_forecast(ws.snapshot_store(), data, result)
         rec["indexed_rows"] = index_snapshot(con, ref, data.run_kind, data.as_of)
-    if name == "tweedie_gbm":
+    if name == REFRESHED_MODEL:
         meter.extra["tweedie_fitted_state"] = result.metadata["fitted_state"]
+
+
+def _refresh_record(state: dict[str, Any]) -> dict[str, Any]:
+    """How a model with a stored state ran: fitted, refitted or continued, and why (tweedie_gbm's record)."""
+    keys = ("refresh_method", "refresh_note", "continuations", "power", "rounds", "booster_rounds")
+    return {k: state[k] for k in keys if isinstance(state, dict) and k in state}
+
+
+def previous_run(ctx: Context, meter: Meter, ws: Workspace, con: Any, cutoff: date) -> None:
+    """A genuine tweedie_gbm snapshot at the newest history month, made as a monthly run makes it.
+
+    Setup for the cycle stage, not a target: the options come from `monthly_options` (with only benchmark
+    copies before it, that is "fit" mode, as in a first run), and the fit's line is also the benchmark's
+    figure for "fit" mode at full scale (`PREVIOUS_FIT_STAGE`; the cycle stage points to it).
+    """
+    from dyadcast import cycle
+    from dyadcast.snapshots import index_snapshot
+
+    config = ws.config()
+    with meter.stage("previous_features", note="setup, not a target: features at the newest history month"):
+        data = cycle.prepare(con.cursor(), config, cutoff, ctx.as_of(cutoff), progress=_quiet)
+    options, source = monthly_options(con, REFRESHED_MODEL, config.monthly_mode, cutoff)
+    with meter.stage(PREVIOUS_FIT_STAGE, mode=mode_of(options), options_from=source,
+                     note="setup, not a target: the snapshot the cycle refreshes from") as rec:
+        result = cycle.fit_and_forecast(REFRESHED_MODEL, data, config, options)
+        rec["timings"] = {k: round(v, 2) for k, v in result.metadata["timings"].items()}
+        rec.update(_refresh_record(result.metadata["fitted_state"]))
+    with meter.stage(f"previous_snapshot_{REFRESHED_MODEL}") as rec:
+        ref = cycle.write_forecast(ws.snapshot_store(), data, result)
+        rec.update(indexed_rows=index_snapshot(con, ref, data.run_kind, data.as_of), run_id=ref.run_id,
+                   artifacts=sorted(p.name for p in (ref.path / "artifacts").glob("*")))
 
 
 def _quiet(_: str) -> None:
@@ -311,7 +362,7 @@ STAGES: dict[str, Callable[[Context, Meter], None]] = {
     "backfill_dense": backfill_dense,
     "features_pandas": features_pandas,
     "features_sql": features_sql,
-    "seed_12": lambda ctx, meter: seed(ctx, meter, 12),
+    "seed_12": lambda ctx, meter: seed(ctx, meter, 12, genuine=True),
     "seed_120": lambda ctx, meter: seed(ctx, meter, 120),
     "score_12": lambda ctx, meter: score_new_month(ctx, meter, 12),
     "score_120": lambda ctx, meter: score_new_month(ctx, meter, 120),

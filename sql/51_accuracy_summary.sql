@@ -1,5 +1,7 @@
 -- Layer 50 (accuracy). accuracy_summary: one row per model x run_kind x horizon x cutoff x vintage x level,
--- over accuracy_current (newest run per cutoff, newest row per vintage).
+-- over the rows of accuracy_current (newest run per cutoff, newest row per vintage). Computed from the
+-- per-group sums of accuracy_groups (sql/50_12), not from the log, so it costs the same however long the
+-- history is; the numbers are those of the plain averages over accuracy_current.
 -- Columns:
 --   model, run_kind, horizon, cutoff, vintage, level   the group
 --   n                       targets scored
@@ -14,27 +16,29 @@
 --   n_positive              targets with arrivals > 0
 --   exceedances, exceedance_rate                      actual > q950 (nominal rate 5 %)
 CREATE OR REPLACE VIEW accuracy_summary AS
+WITH summary_groups AS MATERIALIZED (
+    SELECT * FROM accuracy_groups
+)
 SELECT
-    model, run_kind, horizon, cutoff, vintage, level,
-    count(*) AS n,
-    avg(abs_error) AS mae,
-    sqrt(avg(sq_error)) AS rmse,
-    avg(scaled_error) AS mase,
-    avg(poisson_deviance) AS mean_poisson_deviance,
-    avg(tweedie_deviance) AS mean_tweedie_deviance,
-    avg(CAST(covered_50 AS DOUBLE)) AS coverage_50,
-    avg(CAST(covered_90 AS DOUBLE)) AS coverage_90,
-    avg(wis) AS mean_wis,
-    avg(wis_dispersion) AS mean_wis_dispersion,
-    avg(wis_overprediction) AS mean_wis_overprediction,
-    avg(wis_underprediction) AS mean_wis_underprediction,
-    avg(error) AS bias,
-    count(*) FILTER (WHERE predicted_positive AND actual_positive)
-        / nullif(count(*) FILTER (WHERE predicted_positive), 0) AS precision,
-    count(*) FILTER (WHERE predicted_positive AND actual_positive)
-        / nullif(count(*) FILTER (WHERE actual_positive), 0) AS recall,
-    count(*) FILTER (WHERE actual_positive) AS n_positive,
-    count(*) FILTER (WHERE exceeded) AS exceedances,
-    avg(CAST(exceeded AS DOUBLE)) AS exceedance_rate
-FROM accuracy_current
-GROUP BY model, run_kind, horizon, cutoff, vintage, level;
+    g.model, g.run_kind, g.horizon, g.cutoff, g.vintage, g.level,
+    CAST(sum(g.n) AS BIGINT) AS n,
+    sum(g.sum_abs_error) / sum(g.n) AS mae,
+    sqrt(sum(g.sum_sq_error) / sum(g.n)) AS rmse,
+    sum(g.sum_scaled_error) / nullif(sum(g.n_scaled), 0) AS mase,
+    sum(g.sum_poisson_deviance) / sum(g.n) AS mean_poisson_deviance,
+    sum(g.sum_tweedie_deviance) / sum(g.n) AS mean_tweedie_deviance,
+    sum(g.n_covered_50) / sum(g.n) AS coverage_50,
+    sum(g.n_covered_90) / sum(g.n) AS coverage_90,
+    sum(g.sum_wis) / sum(g.n) AS mean_wis,
+    sum(g.sum_wis_dispersion) / sum(g.n) AS mean_wis_dispersion,
+    sum(g.sum_wis_overprediction) / sum(g.n) AS mean_wis_overprediction,
+    sum(g.sum_wis_underprediction) / sum(g.n) AS mean_wis_underprediction,
+    sum(g.sum_error) / sum(g.n) AS bias,
+    sum(g.n_true_positive) / nullif(sum(g.n_predicted_positive), 0) AS precision,
+    sum(g.n_true_positive) / nullif(sum(g.n_actual_positive), 0) AS recall,
+    CAST(sum(g.n_actual_positive) AS BIGINT) AS n_positive,
+    CAST(sum(g.n_exceeded) AS BIGINT) AS exceedances,
+    sum(g.n_exceeded) / sum(g.n) AS exceedance_rate
+FROM summary_groups AS g
+SEMI JOIN accuracy_summary_runs_of('summary_groups') AS r ON r.run_id = g.run_id AND r.is_latest_run
+GROUP BY g.model, g.run_kind, g.horizon, g.cutoff, g.vintage, g.level;

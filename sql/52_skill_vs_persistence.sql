@@ -4,6 +4,8 @@
 -- actual_vintage_key). Rows come from accuracy_current (newest run per cutoff x model x run kind); each
 -- cutoff counts once per model: its monthly run where there is one, else its backtest (the rule of
 -- accuracy_overview), so a month that was both backtested and run live is not counted twice.
+-- Computed from the per-group sums of accuracy_groups and the matched sums of accuracy_pairs (sql/50_12-13;
+-- is_skill_run of accuracy_summary_runs is the run rule above), not from the log.
 -- Columns:
 --   model, horizon, vintage, level
 --   n_model, n_persistence  targets each scored in this group
@@ -15,39 +17,38 @@
 --   note                    plain-language warning when the sets differ or there is nothing to compare
 -- Persistence itself appears with relative_wis = 1.
 CREATE OR REPLACE VIEW skill_vs_persistence AS
-WITH model_rows AS (
-    SELECT * FROM accuracy_current
-    QUALIFY dense_rank() OVER (PARTITION BY cutoff, model ORDER BY (run_kind = 'monthly') DESC) = 1
+WITH summary_groups AS MATERIALIZED (
+    SELECT * FROM accuracy_groups
 ),
-persistence_rows AS (
-    SELECT * FROM model_rows WHERE model = 'persistence'
+skill_runs AS MATERIALIZED (
+    SELECT run_id, model FROM accuracy_summary_runs_of('summary_groups') WHERE is_skill_run
 ),
-common AS (
-    SELECT m.model, m.horizon, m.vintage, m.level,
-           m.wis AS wis_m, p.wis AS wis_p, m.abs_error AS ae_m, p.abs_error AS ae_p
-    FROM model_rows AS m
-    JOIN persistence_rows AS p
-      ON  p.cutoff = m.cutoff AND p.run_kind = m.run_kind AND p.level = m.level
-      AND p.origin = m.origin AND p.destination = m.destination AND p.target_month = m.target_month
-      AND p.horizon = m.horizon AND p.vintage = m.vintage AND p.actual_vintage_key = m.actual_vintage_key
+model_groups AS MATERIALIZED (
+    SELECT g.model, g.horizon, g.vintage, g.level, g.n
+    FROM summary_groups AS g
+    SEMI JOIN skill_runs AS r ON r.run_id = g.run_id
 ),
 compared AS (
-    SELECT model, horizon, vintage, level,
-           count(*) AS n_common,
-           sum(wis_m) / nullif(sum(wis_p), 0) AS relative_wis,
-           sum(ae_m) / nullif(sum(ae_p), 0) AS relative_mae,
-           avg(wis_m) AS mean_wis, avg(wis_p) AS persistence_mean_wis,
-           avg(ae_m) AS mae, avg(ae_p) AS persistence_mae
-    FROM common
-    GROUP BY model, horizon, vintage, level
+    SELECT r.model, p.horizon, p.vintage, p.level,
+           CAST(sum(p.n_common) AS BIGINT) AS n_common,
+           sum(p.sum_wis) / nullif(sum(p.sum_wis_persistence), 0) AS relative_wis,
+           sum(p.sum_abs_error) / nullif(sum(p.sum_abs_error_persistence), 0) AS relative_mae,
+           sum(p.sum_wis) / sum(p.n_common) AS mean_wis,
+           sum(p.sum_wis_persistence) / sum(p.n_common) AS persistence_mean_wis,
+           sum(p.sum_abs_error) / sum(p.n_common) AS mae,
+           sum(p.sum_abs_error_persistence) / sum(p.n_common) AS persistence_mae
+    FROM accuracy_pairs AS p
+    JOIN skill_runs AS r ON r.run_id = p.run_id
+    SEMI JOIN skill_runs AS pr ON pr.run_id = p.persistence_run_id AND pr.model = 'persistence'
+    GROUP BY r.model, p.horizon, p.vintage, p.level
 ),
 model_counts AS (
-    SELECT model, horizon, vintage, level, count(*) AS n_model
-    FROM model_rows GROUP BY model, horizon, vintage, level
+    SELECT model, horizon, vintage, level, CAST(sum(n) AS BIGINT) AS n_model
+    FROM model_groups GROUP BY model, horizon, vintage, level
 ),
 persistence_counts AS (
-    SELECT horizon, vintage, level, count(*) AS n_persistence
-    FROM persistence_rows GROUP BY horizon, vintage, level
+    SELECT horizon, vintage, level, CAST(sum(n) AS BIGINT) AS n_persistence
+    FROM model_groups WHERE model = 'persistence' GROUP BY horizon, vintage, level
 )
 SELECT
     mc.model, mc.horizon, mc.vintage, mc.level,

@@ -138,6 +138,26 @@ def test_crash_before_commit_leaves_nothing(wh, monkeypatch: pytest.MonkeyPatch)
     assert score_pending(con, acc).rows_written == 36
 
 
+@pytest.mark.parametrize("failing", ["write_temporary", "insert_rows"])
+def test_failure_while_the_batch_is_written_and_inserted_leaves_nothing(
+    wh, monkeypatch: pytest.MonkeyPatch, failing: str
+) -> None:
+    # The Parquet file is written on a second thread while the rows are inserted: whichever of the two fails,
+    # the transaction rolls back, the other is waited for, and no file (temporary or published) remains.
+    con, acc = wh
+
+    def fail(*_args: object) -> None:
+        raise OSError(f"{failing} failed (simulated)")
+
+    monkeypatch.setattr(pending, failing, fail)
+    with pytest.raises(OSError, match="simulated"):
+        score_pending(con, acc)
+    assert count(con, "accuracy_rows") == 0 and count(con, "scoring_checks") == 0
+    assert list(acc.iterdir()) == []
+    monkeypatch.undo()
+    assert score_pending(con, acc).rows_written == 36
+
+
 def test_crash_after_rename_is_recovered_without_rescoring(wh) -> None:
     con, acc = wh
     first = score_pending(con, acc)

@@ -13,6 +13,7 @@ from dyadcast.months import format_month
 from dyadcast.report import sections
 from dyadcast.report.collect import ReportData, collect
 from dyadcast.report.page import page
+from dyadcast.report.summaries import refresh_summaries
 from dyadcast.workspace import Workspace
 
 CURRENT_NAME = "accuracy.html"
@@ -52,8 +53,10 @@ def build_report(con: duckdb.DuckDBPyConnection, ws: Workspace, cutoff: date | N
     """Write reports/accuracy.html and reports/accuracy_YYYY-MM.html for the cutoff; returns the first.
 
     cutoff None: the newest cutoff with a run. The dated copy keeps what the report said for that cutoff;
-    building it again for the same cutoff replaces it.
+    building it again for the same cutoff replaces it. The accuracy summaries are brought up to date first
+    (nothing to do on a read-only connection: the views then summarise the newest batches live).
     """
+    refresh_summaries(con)
     config = ws.config()
     data = collect(con, cutoff, config.primary_model, config.horizon)
     ws.reports.mkdir(parents=True, exist_ok=True)

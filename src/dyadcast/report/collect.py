@@ -81,7 +81,8 @@ def collect(con: duckdb.DuckDBPyConnection, cutoff: date | None, primary_model: 
     forecast = queries.forecast_totals(con, cutoff, model) if model else pd.DataFrame()
     if not forecast.empty:
         horizon = int(forecast["horizon"].max())
-    history = queries.actual_totals(con, cutoff, HISTORY_MONTHS, horizon) if cutoff else pd.DataFrame()
+    # reported totals are drawn only beside a forecast; without one the page never shows them
+    history = queries.actual_totals(con, cutoff, HISTORY_MONTHS, horizon) if not forecast.empty else pd.DataFrame()
     focus = model if model and model != REFERENCE else primary_model
     return ReportData(
         cutoff=cutoff,

@@ -1,5 +1,7 @@
 """What the report reads from the warehouse. The logic lives in the analyst views of `sql/6*`
-(and the scoring views of `sql/50_*`); here are only filtered reads of them.
+(and the scoring views of `sql/50_*`); here are only filtered reads of them. Accuracy comes from the
+summaries of the accuracy log (sql/06_schema_accuracy_summaries.sql), never from the log itself, so a
+report costs the same with 12 stored runs as with 120 (`dyadcast.report.summaries`).
 
 A view that does not exist yet (a fresh workspace, or a layer not installed) reads as an empty frame,
 so the report can say "nothing yet" instead of failing.
@@ -15,6 +17,7 @@ import duckdb
 import pandas as pd
 
 from dyadcast.months import add_months
+from dyadcast.report.summaries import SURPRISE_DEPTH
 
 SURPRISE_COLUMNS = ["cutoff", "horizon", "origin", "destination", "target_month", "actual", "q050", "q500",
                     "q950", "beyond_90"]
@@ -92,28 +95,66 @@ def skill(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
 
 
 def surprises(con: duckdb.DuckDBPyConnection, model: str, limit: int = 10) -> pd.DataFrame:
-    """Dyads whose actual fell furthest outside the 90 % interval (latest vintage, counted runs)."""
-    frame = read(
-        con, "accuracy_log",
-        {"model": model, "level": "dyad", "vintage": "latest", "is_reference_run": True, "is_current": True},
-        order_by=["beyond_90 DESC", "target_month DESC", "origin", "destination"], limit=limit,
-        extra="beyond_90 > 0",
+    """Dyads whose actual fell furthest outside the 90 % interval (latest vintage, counted runs).
+
+    The rows of accuracy_log with is_reference_run and is_current, read from the few rows per run, target
+    month and vintage that accuracy_surprise_candidates keeps (enough for any top `SURPRISE_DEPTH`). Ties
+    in the distance go to the newer target month, then by origin, destination and the newer cutoff.
+    """
+    if limit > SURPRISE_DEPTH:
+        raise ValueError(f"surprises: limit {limit} is above the {SURPRISE_DEPTH} rows per run, target month and "
+                         "vintage that accuracy_surprise_rows keeps (sql/50_10); raise both together")
+    if not relation_exists(con, "accuracy_surprise_candidates"):
+        return pd.DataFrame()
+    sql = (
+        "SELECT s.* FROM accuracy_surprise_candidates AS s "
+        "SEMI JOIN accuracy_summary_runs AS r ON r.run_id = s.run_id AND r.is_reference_run "
+        "WHERE s.model = ? AND s.vintage = 'latest' "
+        "ORDER BY s.beyond_90 DESC, s.target_month DESC, s.origin, s.destination, s.cutoff DESC LIMIT ?"
     )
+    frame = con.execute(sql, [model, limit]).fetchdf()
     return frame[SURPRISE_COLUMNS] if not frame.empty else frame
 
 
+def exceedance_months(con: duckdb.DuckDBPyConnection, model: str, limit: int) -> date | None:
+    """The oldest target month the early-warning list can reach: newest months first, until they hold at
+    least `limit` exceedances. A month holds at least as many distinct dyads as its largest run counted, so
+    the rows of the months before this one cannot make the list. None: every month is needed (or none)."""
+    sql = (
+        "WITH summary_groups AS MATERIALIZED (SELECT * FROM accuracy_groups) "
+        "SELECT g.target_month, max(g.n_exceeded) AS n FROM summary_groups AS g "
+        "SEMI JOIN accuracy_summary_runs_of('summary_groups') AS r ON r.run_id = g.run_id AND r.is_latest_run "
+        "WHERE g.model = ? AND g.vintage = 'latest' AND g.level = 'dyad' AND g.horizon = 1 AND g.n_exceeded > 0 "
+        "GROUP BY g.target_month ORDER BY g.target_month DESC"
+    )
+    total = 0
+    for month, n in con.execute(sql, [model]).fetchall():
+        total += int(n)
+        if total >= limit:
+            return month
+    return None
+
+
 def exceedances(con: duckdb.DuckDBPyConnection, model: str, limit: int = 15) -> pd.DataFrame:
-    """The early-warning list of the scoring step (h = 1, actual above q950) for one model."""
-    frame = read(con, "exceedances", {"model": model})
-    if frame.empty:
-        return frame
-    if "vintage" in frame.columns:
-        frame = frame[frame["vintage"] == "latest"]
-    # a target forecast by a monthly run and a backtest appears once, as the monthly run saw it
-    frame = frame.assign(excess=frame["actual"] - frame["q950"], monthly=frame["run_kind"].eq("monthly"))
-    frame = frame.sort_values(["monthly", "run_id"], ascending=False).drop_duplicates(
-        ["target_month", "origin", "destination"])
-    return frame.sort_values(["target_month", "excess"], ascending=[False, False]).head(limit).reset_index(drop=True)
+    """The early-warning list of the scoring step (h = 1, actual above q950, latest vintage) for one model,
+    newest target months first: the rows of the view `exceedances`, read only for the newest target months
+    the list can reach. A target forecast by a monthly run and a backtest appears once, as the monthly run
+    saw it (else the newest run)."""
+    if not relation_exists(con, "accuracy_exceedance_candidates"):
+        return pd.DataFrame()
+    oldest = exceedance_months(con, model, limit)
+    sql = (
+        "WITH summary_groups AS MATERIALIZED (SELECT * FROM accuracy_groups) "
+        "SELECT e.model, e.run_kind, e.cutoff, e.run_id, e.target_month, e.vintage, e.origin, e.destination, "
+        "e.actual, e.mean, e.q500, e.q950, e.actual - e.q950 AS excess, e.actual / nullif(e.q950, 0) AS excess_ratio "
+        "FROM accuracy_exceedance_candidates AS e "
+        "SEMI JOIN accuracy_summary_runs_of('summary_groups') AS r ON r.run_id = e.run_id AND r.is_latest_run "
+        "WHERE e.model = ? AND e.vintage = 'latest' AND e.target_month >= ? "
+        "QUALIFY row_number() OVER (PARTITION BY e.target_month, e.origin, e.destination "
+        "ORDER BY (e.run_kind = 'monthly') DESC, e.run_id DESC) = 1 "
+        "ORDER BY e.target_month DESC, excess DESC, e.origin, e.destination LIMIT ?"
+    )
+    return con.execute(sql, [model, oldest or date.min, limit]).fetchdf()
 
 
 def freshness(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:

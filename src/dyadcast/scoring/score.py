@@ -1,7 +1,8 @@
 """The scoring core: forecasts + actuals (pandas frames) -> accuracy rows. No warehouse, no files.
 
-`score_frame` is what `score_pending` (pending.py) calls once per target month and vintage; tests call it
-directly. A dyad is scored once its (destination, month) is reported (a reported destination-month with
+`score_frame` states the scoring rules on pandas frames; the scoring step (pending.py) applies the same rules
+in the warehouse (sql/59_scoring_rows.sql, tested against `score_frame`) because joining a month's forecasts
+to its actuals in pandas cost most of its time at scale. Both compute the values with `measures`. A dyad is scored once its (destination, month) is reported (a reported destination-month with
 no row for the dyad is an implied zero, as in the flows contract). Totals are scored against the sum of
 the actuals of the dyads the run forecast, and only when every (destination, month) the total spans was
 reported; until then they wait, and are scored when the missing month arrives.
@@ -10,13 +11,14 @@ reported; until then they wait, and are scored when the missing month arrives.
 from __future__ import annotations
 
 import hashlib
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from datetime import UTC, datetime
 
 import numpy as np
 import pandas as pd
 
 from dyadcast.scoring import metrics
+from dyadcast.scoring.metrics import ArrayLike
 from dyadcast.scoring.schema import ACCURACY_COLUMNS, LEVELS, QUANTILE_COLUMNS, VINTAGES
 
 SPAN = "*"
@@ -181,29 +183,42 @@ def attach_actuals(forecasts: pd.DataFrame, actuals: pd.DataFrame) -> tuple[pd.D
     return pd.concat([dyads, totals], ignore_index=True), len(totals_fc) - len(totals)
 
 
-def add_measures(frame: pd.DataFrame, deviance_floor: float = metrics.DEVIANCE_FLOOR,
-                 tweedie_power: float = metrics.TWEEDIE_POWER) -> pd.DataFrame:
-    """Every per-row measure of the accuracy log, computed column-wise."""
-    out = frame.copy()
-    y, point = out["actual"].to_numpy(float), out["mean"].to_numpy(float)
-    out["error"] = metrics.error(y, point)
-    out["abs_error"] = metrics.absolute_error(y, point)
-    out["sq_error"] = metrics.squared_error(y, point)
-    out["poisson_deviance"] = metrics.poisson_deviance(y, point, floor=deviance_floor)
-    out["tweedie_deviance"] = metrics.tweedie_deviance(y, point, power=tweedie_power, floor=deviance_floor)
-    out["tweedie_power"] = tweedie_power
-    out["deviance_floor"] = deviance_floor
+def measures(columns: Mapping[str, ArrayLike], deviance_floor: float = metrics.DEVIANCE_FLOOR,
+             tweedie_power: float = metrics.TWEEDIE_POWER) -> dict[str, np.ndarray]:
+    """Every per-row measure of the accuracy log from the columns actual, mean, q050 .. q950, p_positive.
+
+    Takes any mapping of equal-length columns (a DataFrame, or numpy arrays from the warehouse), so that the
+    scoring step and `score_frame` compute the log's values with the same code. The deviance floor and the
+    Tweedie power are returned as constant columns: each row records the settings it was scored with.
+    """
+    y, point = np.asarray(columns["actual"], dtype=float), np.asarray(columns["mean"], dtype=float)
+    quantiles = {q: np.asarray(columns[q], dtype=float) for q in QUANTILE_COLUMNS}
+    out: dict[str, np.ndarray] = {
+        "error": metrics.error(y, point),
+        "abs_error": metrics.absolute_error(y, point),
+        "sq_error": metrics.squared_error(y, point),
+        "poisson_deviance": metrics.poisson_deviance(y, point, floor=deviance_floor),
+        "tweedie_deviance": metrics.tweedie_deviance(y, point, power=tweedie_power, floor=deviance_floor),
+        "tweedie_power": np.full(y.size, tweedie_power),
+        "deviance_floor": np.full(y.size, deviance_floor),
+    }
     for alpha, lo, hi in metrics.INTERVALS:
         pct = round(100 * (1 - alpha))
-        out[f"covered_{pct}"] = metrics.covered(y, out[lo], out[hi])
-        out[f"interval_score_{pct}"] = metrics.interval_score(y, out[lo], out[hi], alpha)
-    parts = metrics.wis_from_quantiles(y, out)
+        out[f"covered_{pct}"] = metrics.covered(y, quantiles[lo], quantiles[hi])
+        out[f"interval_score_{pct}"] = metrics.interval_score(y, quantiles[lo], quantiles[hi], alpha)
+    parts = metrics.wis_from_quantiles(y, quantiles)
     out["wis"], out["wis_dispersion"] = parts.wis, parts.dispersion
     out["wis_overprediction"], out["wis_underprediction"] = parts.overprediction, parts.underprediction
-    out["predicted_positive"] = metrics.predicted_positive(out["p_positive"])
+    out["predicted_positive"] = metrics.predicted_positive(columns["p_positive"])
     out["actual_positive"] = y > 0
-    out["exceeded"] = y > out["q950"].to_numpy(float)
+    out["exceeded"] = y > quantiles["q950"]
     return out
+
+
+def add_measures(frame: pd.DataFrame, deviance_floor: float = metrics.DEVIANCE_FLOOR,
+                 tweedie_power: float = metrics.TWEEDIE_POWER) -> pd.DataFrame:
+    """`frame` with the columns of `measures` added."""
+    return frame.assign(**measures(frame, deviance_floor=deviance_floor, tweedie_power=tweedie_power))
 
 
 def score_frame(
@@ -247,7 +262,9 @@ def score_frame(
 def naive_scales(history: pd.DataFrame, scope: pd.DataFrame, run_ids: Iterable[str] | None = None) -> pd.DataFrame:
     """MASE denominators per run and level from the history the run could see (Hyndman & Koehler 2006).
 
-    `history`: origin, destination, month, arrivals up to the cutoff as published by the run's as-of date;
+    `history`: origin, destination, month, arrivals of the run's in-sample period as published by its as-of
+    date (the scoring step uses the training window up to the cutoff: sql/58_scoring_scales.sql, which is
+    this computation in the warehouse);
     `scope`: run_id, origin, destination (the dyads the run forecast). For each level the one-step
     persistence errors |y_t - y_{t-1}| of every series (dyads, origin / destination totals over the scope,
     world total) are pooled; a total counts in a month only if every dyad it sums was reported then.
