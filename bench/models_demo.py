@@ -8,6 +8,8 @@ then `dyadcast.cycle.prepare` at cutoff 2024-12 as of 2025-01-10 (356 dyads, H =
            snapshot metadata stores it>} where accepted, else the same call again;
 * refresh-prev: the same, with the state of a fit at the previous month (cutoff 2024-11 as of 2024-12-10):
            what a monthly cycle really starts from (one more month of data, revised figures).
+Models that continue from their saved files (tweedie_gbm) also get the folder of the files the run before
+saved (`params["artifacts_dir"]`, what the cycle hands over after a snapshot).
 CPU seconds (`time.process_time`, this process, all threads) and wall seconds are reported per model, with the
 warnings each run raised. Libraries are imported before timing (their import cost is reported separately):
 the cycle pays it once per process, not per model.
@@ -130,7 +132,7 @@ def run_once(name: str, data, config, options: dict[str, Any], profile: bool) ->
             profiler.disable()
         cpu, wall = time.process_time() - cpu, time.perf_counter() - wall
     timings = result.metadata["timings"]
-    state = json.loads(json.dumps(result.metadata["fitted_state"], default=str))
+    state = with_model_files(result.fitted, json.loads(json.dumps(result.metadata["fitted_state"], default=str)))
     out = {"cpu_s": round(cpu, 2), "wall_s": round(wall, 2), "fit_wall_s": round(timings["fit_s"], 2),
            "predict_wall_s": round(timings["predict_s"], 2), "totals_wall_s": round(timings["totals_s"], 2),
            "warnings": dict(Counter(w.category.__name__ for w in caught)),
@@ -142,10 +144,36 @@ def run_once(name: str, data, config, options: dict[str, Any], profile: bool) ->
     return out
 
 
+def with_model_files(model: Any, state: dict[str, Any]) -> dict[str, Any]:
+    """The stored state plus the folder of the model's saved files, as a refresh after a snapshot gets them
+    (`params["artifacts_dir"]`; tweedie_gbm continues its boosters from there)."""
+    if not state or "refresh_method" not in state:  # only models that continue from their files
+        return state
+    folder = Path(tempfile.mkdtemp(prefix="models_demo_files_"))
+    model.save_artifacts(folder)
+    return {**state, "artifacts_dir": str(folder)}
+
+
+def _at(frame, pseudo, horizon: int):  # noqa: ANN001, ANN202 - (training frame, rows at the pseudo-cutoff)
+    import numpy as np
+    import pandas as pd
+
+    months = pd.to_datetime(frame["month"])
+    past = frame[months < pseudo].copy()
+    past_months = pd.to_datetime(past["month"])
+    for h in range(1, horizon + 1):
+        past.loc[(past_months + pd.DateOffset(months=h) > pseudo).to_numpy(), f"target_{h}"] = np.nan
+    return past, frame[months == pseudo]
+
+
 def score_models(data, config, names: list[str], backs: tuple[int, ...] = (6, 9, 12)  # noqa: ANN001
                  ) -> dict[str, dict[str, float]]:
     """Honesty check: at pseudo-cutoffs P = C - back, fit on anchors before P (targets after P hidden),
-    forecast from P and score against the targets the frame already knows (active dyads), pooled over P."""
+    forecast from P and score against the targets the frame already knows (active dyads), pooled over P.
+
+    Models that continue from last month's files (tweedie_gbm) are also scored as a monthly refresh makes
+    them: fitted at P - 1, then refreshed at P from that state and its files ("<name>/refresh").
+    """
     import numpy as np
     import pandas as pd
 
@@ -157,23 +185,33 @@ def score_models(data, config, names: list[str], backs: tuple[int, ...] = (6, 9,
     splits = []
     for back in backs:
         pseudo = months.max() - pd.DateOffset(months=back - 1)
-        past = frame[months < pseudo].copy()
-        past_months = pd.to_datetime(past["month"])
-        for h in range(1, config.horizon + 1):
-            past.loc[(past_months + pd.DateOffset(months=h) > pseudo).to_numpy(), f"target_{h}"] = np.nan
-        splits.append((past, frame[months == pseudo]))
+        splits.append((*_at(frame, pseudo, config.horizon), _at(frame, pseudo - pd.DateOffset(months=1),
+                                                               config.horizon)[0]))
     levels = sorted(config.quantiles)
     out = {}
-    for name in names:
+    for name in [n for m in names for n in (m, f"{m}/refresh")]:
+        base, refresh = name.removesuffix("/refresh"), name.endswith("/refresh")
+        if refresh and not takes_state(base):
+            continue
         cpu, parts = time.process_time(), []
-        for past, rows in splits:
-            model = make_model(name, horizon=config.horizon, quantiles=config.quantiles, seed=config.seed)
+        for past, rows, before in splits:
+            make = {"horizon": config.horizon, "quantiles": config.quantiles, "seed": config.seed}
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
+                if refresh:
+                    previous = make_model(base, **make).fit(before)
+                    state = with_model_files(previous, json.loads(json.dumps(previous.fitted_state(), default=str)))
+                    if "artifacts_dir" not in state:
+                        break  # a model without files to continue: its refresh is its fit, already scored
+                    model = make_model(base, **make, tune=False, params=state)
+                else:
+                    model = make_model(base, **make)
                 forecast = model.fit(past).predict(rows)
             for h in range(1, config.horizon + 1):
                 truth = rows[["origin", "destination", f"target_{h}"]].rename(columns={f"target_{h}": "y"})
                 parts.append(forecast[forecast["horizon"] == h].merge(truth, on=["origin", "destination"]))
+        if not parts:
+            continue
         cpu = time.process_time() - cpu
         j = pd.concat(parts).dropna(subset=["y"])
         y = j["y"].to_numpy(dtype=float)

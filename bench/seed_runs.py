@@ -143,13 +143,18 @@ def monthly_options(con: duckdb.DuckDBPyConnection, name: str, mode: str, cutoff
     snapshot it read the state from is added here (same query), and the returned note says so, so the
     benchmark's figure is never mistaken for what an unchanged cycle does.
     """
-    options = cycle.model_options(con, name, mode, cutoff)
-    params = options.get("params")
-    if not params or ARTIFACTS_KEY in params:
-        return options, "cycle.model_options"
-    row = con.execute(
-        "SELECT path, metadata_json FROM snapshot_runs WHERE model = ? AND cutoff < ? "
-        "ORDER BY cutoff DESC, created_at DESC LIMIT 1", [name, cutoff]).fetchone()
+    cursor = con.cursor()  # its own connection: a fetchone() left open must not block the caller's next query
+    try:
+        options = cycle.model_options(cursor, name, mode, cutoff)
+        params = options.get("params")
+        if not params or ARTIFACTS_KEY in params:
+            return options, "cycle.model_options"
+        rows = cursor.execute(
+            "SELECT path, metadata_json FROM snapshot_runs WHERE model = ? AND cutoff < ? "
+            "ORDER BY cutoff DESC, created_at DESC LIMIT 1", [name, cutoff]).fetchall()
+    finally:
+        cursor.close()
+    row = rows[0] if rows else None
     if row is None or not json.loads(row[1]).get("artifacts"):
         return options, "cycle.model_options (the stored snapshot has no model files)"
     folder = str(Path(row[0]) / ARTIFACTS_DIR)

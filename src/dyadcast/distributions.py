@@ -358,10 +358,11 @@ def _grid_fit(mu: np.ndarray, p: np.ndarray, q: np.ndarray, tau: np.ndarray, los
     cond_mean = np.maximum(np.where(p > 0, mu / np.maximum(p, 1e-300), 1.0), 1.0)[:, None]
     alphas = np.broadcast_to(ALPHA_GRID[None, :], (mu.size, ALPHA_GRID.size))
     m, loss = _grid_loss(cond_mean, alphas, p, q, tau)
-    # ties (e.g. all quantiles 0): take the grid point nearest the middle of the tied range; losses closer
-    # than 1e-7 are ties (below that they differ by rounding, e.g. for m -> 0 where alpha has no effect)
+    # ties (e.g. all quantiles 0): take the grid point nearest the middle of the tied range. Where m -> 0
+    # (conditional mean 1: positives at 1) alpha has no effect and every grid point is a tie; the losses
+    # there differ only by rounding (1e-8)
     grid = np.arange(ALPHA_GRID.size)[None, :]
-    tied = loss <= loss.min(axis=1, keepdims=True) + 1e-7
+    tied = (loss <= loss.min(axis=1, keepdims=True) + 1e-9) | (cond_mean <= 1.0)
     centre = (tied * grid).sum(axis=1) / tied.sum(axis=1)
     pick = np.argmin(np.where(tied, np.abs(grid - centre[:, None]), np.inf), axis=1)
     rows = np.arange(mu.size)
@@ -486,11 +487,16 @@ def _table_cdf(k: np.ndarray, m: np.ndarray, alpha: np.ndarray, width: int) -> n
     pmf(j) = pmf(j - 1) (j - 1 + n) / j * alpha m / (1 + alpha m)."""
     n = 1.0 / alpha
     fail = alpha * m / (1.0 + alpha * m)
+    n_fail = n * fail
     cdf = np.empty((width, *m.shape))
     pmf = np.exp(-n * np.log1p(alpha * m))
     cdf[0] = pmf
-    for j in range(1, width):
-        pmf = pmf * ((j - 1.0 + n) / j * fail)
+    ratio = np.empty(m.shape)
+    for j in range(1, width):  # in place: this loop is most of the grid reading's time
+        np.multiply(fail, j - 1.0, out=ratio)
+        ratio += n_fail
+        pmf *= ratio
+        pmf *= 1.0 / j
         np.add(cdf[j - 1], pmf, out=cdf[j])
     idx = np.broadcast_to(np.clip(k, 0, width - 1).astype(np.intp).transpose(2, 0, 1),
                           (k.shape[2], *m.shape))

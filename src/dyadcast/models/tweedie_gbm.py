@@ -90,8 +90,8 @@ class TweedieGBM(CountModel):
                  validation_months: int = 6, learning_rate: float = 0.1, num_leaves: int = 15,
                  min_data_in_leaf: int = 50, max_rounds: int = 300, early_stopping_rounds: int = 15,
                  num_threads: int = 1, interval_method: str = "nb", max_bin: int = 63,
-                 max_zero_rows: int | None = 150_000, refresh_rounds: int = 10,
-                 refresh_learning_rate: float = 0.03, refresh_window: int = 1, max_continuations: int = 12) -> None:
+                 max_zero_rows: int | None = 150_000, refresh_rounds: int = 5,
+                 refresh_learning_rate: float = 0.03, max_continuations: int = 12) -> None:
         super().__init__(horizon=horizon, quantiles=quantiles, seed=seed)
         if interval_method not in ("nb", "conformal"):
             raise ValueError(f"TweedieGBM: interval_method={interval_method!r}; use 'nb' or 'conformal'")
@@ -104,7 +104,7 @@ class TweedieGBM(CountModel):
         self.max_rounds, self.early_stopping_rounds = max_rounds, early_stopping_rounds
         self.max_bin, self.max_zero_rows = max_bin, max_zero_rows
         self.refresh_rounds, self.refresh_learning_rate = refresh_rounds, refresh_learning_rate
-        self.max_continuations, self.refresh_window = max_continuations, refresh_window
+        self.max_continuations = max_continuations
         # Capped at 2. Default 1: on the shared 2-core box, 2 OpenMP threads ran 10-20x slower under load.
         self.num_threads = max(1, min(int(num_threads), 2))
         self.interval_method = interval_method
@@ -115,7 +115,7 @@ class TweedieGBM(CountModel):
     def _lgb_params(self, power: float, learning_rate: float | None = None) -> dict[str, Any]:
         return {"objective": "tweedie", "tweedie_variance_power": power,
                 "learning_rate": learning_rate or self.learning_rate, "num_leaves": self.num_leaves,
-                "min_data_in_leaf": self.min_data_in_leaf, "feature_fraction": 0.9, "max_bin": self.max_bin,
+                "min_data_in_leaf": self.min_data_in_leaf, "feature_fraction": 0.7, "max_bin": self.max_bin,
                 "num_threads": self.num_threads, "seed": self.seed, "deterministic": True, "force_row_wise": True,
                 "verbose": -1}
 
@@ -325,10 +325,6 @@ class TweedieGBM(CountModel):
             month_alpha = fit_nb_alpha(y, mu, start=alpha)
             alpha = float(np.exp((1 - weight_new) * np.log(alpha) + weight_new * np.log(month_alpha)))
             keep, weight, share = self._thin(y, h)
-            if self.refresh_rounds > 0 and self.refresh_window > 1:
-                recent = known[month_no[known] + h > int(month_no[new].max()) + h - self.refresh_window]
-                x, y = self._rows(base, recent, h), y_all[recent]
-                keep, weight, share = self._thin(y, h)
             if self.refresh_rounds > 0:
                 data = self._dataset(x[keep], y[keep], weight[keep] if share < 1 else None)
                 booster = self._train(data, power, self.refresh_rounds, init_model=booster,

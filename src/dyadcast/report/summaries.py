@@ -9,7 +9,10 @@ different. The report build calls `refresh_summaries` first; anything else may c
 
 from __future__ import annotations
 
+import re
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
@@ -30,6 +33,12 @@ CHANGES, ALL_GROUPS, GROUPS, GROUP_ROWS, SUPERSEDED, OLDER_ROWS, CURRENT = (
 # Target months recomputed per pass: a monthly scoring touches the new month and the revised one (one pass);
 # a first refresh of a long log or a rebuilt log goes through it two months at a time, in bounded memory.
 MONTHS_PER_PASS = 2
+# DuckDB memory while refreshing. The rows a revision replaced may lie anywhere in a long log; read once, they
+# need not stay cached, and without a cap DuckDB keeps every block it read (1.4 GB with 120 stored runs,
+# measured). Below about 0.6 GB the refresh took the same time at that scale (measured); 1 GiB leaves room.
+REFRESH_MEMORY_LIMIT = 1 << 30
+_UNITS = {"b": 1, "bytes": 1, "kb": 10**3, "mb": 10**6, "gb": 10**9, "tb": 10**12,
+          "kib": 2**10, "mib": 2**20, "gib": 2**30, "tib": 2**40}
 SURPRISE_DEPTH = 20  # rows kept per group by accuracy_surprise_rows_of (sql/50_10)
 
 
@@ -107,32 +116,42 @@ def _record_batches(con: duckdb.DuckDBPyConnection) -> tuple[int, int]:
     return int(counts.get("new", 0)), int(counts.get("gone", 0))
 
 
+def _bytes(setting: str) -> float | None:
+    """DuckDB's memory_limit text ('18.8 GiB', '572.2 MiB') in bytes; None if it is not of that form."""
+    match = re.fullmatch(r"\s*([0-9.]+)\s*([A-Za-z]+)\s*", setting)
+    if not match or match.group(2).lower() not in _UNITS:
+        return None
+    return float(match.group(1)) * _UNITS[match.group(2).lower()]
+
+
+@contextmanager
+def _memory_cap(con: duckdb.DuckDBPyConnection, limit: int) -> Iterator[None]:
+    """Lower DuckDB's memory limit to `limit` bytes for the block, then put the previous value back."""
+    previous = str(con.execute("SELECT current_setting('memory_limit')").fetchone()[0])
+    current = _bytes(previous)
+    if current is not None and current <= limit:
+        yield
+        return
+    con.execute(f"SET memory_limit = '{limit}B'")
+    try:
+        yield
+    finally:
+        con.execute(f"SET memory_limit = '{previous}'")
+
+
 def _drop_temporaries(con: duckdb.DuckDBPyConnection) -> None:
     con.execute(f"DROP VIEW IF EXISTS {CURRENT}")
     for name in (OLDER_ROWS, SUPERSEDED, GROUP_ROWS, GROUPS, ALL_GROUPS, CHANGES):
         con.execute(f"DROP TABLE IF EXISTS {name}")
 
 
-def refresh_summaries(con: duckdb.DuckDBPyConnection) -> RefreshResult:
-    """Store the summaries of every batch of `accuracy_rows` not summarised yet, in one transaction.
-
-    Costs one pass over the rows of the affected target months (and a scan of the batch ids when something
-    changed); nothing when the summaries are current. On a read-only connection nothing is stored and the
-    views compute the missing part live.
-    """
-    started = time.perf_counter()
-    if not _exists(con, "accuracy_summary_status"):
-        return RefreshResult("no summaries")
-    if is_read_only(con):
-        return RefreshResult("read-only")
-    if not is_stale(con):
-        return RefreshResult("current")
+def _refresh(con: duckdb.DuckDBPyConnection) -> tuple[int, int, int]:
+    """One transaction: find what changed, replace the summaries of those groups, record the batches."""
     con.execute("BEGIN TRANSACTION")
     try:
         # The order matters: the groups are read from the stored summaries before they are replaced.
         con.execute(f"CREATE OR REPLACE TEMP TABLE {CHANGES} AS SELECT * FROM accuracy_summary_batch_changes")
-        con.execute(f"CREATE OR REPLACE TEMP TABLE {ALL_GROUPS} AS "
-                    f"SELECT * FROM accuracy_recompute_groups_of('{CHANGES}')")
+        con.execute(f"CREATE OR REPLACE TEMP TABLE {ALL_GROUPS} AS SELECT * FROM accuracy_recompute_groups_of('{CHANGES}')")
         groups = int(con.execute(f"SELECT count(*) FROM {ALL_GROUPS}").fetchone()[0])
         months = [r[0] for r in con.execute(f"SELECT DISTINCT target_month FROM {ALL_GROUPS} ORDER BY 1").fetchall()]
         since = _first_new_score(con)
@@ -145,4 +164,23 @@ def refresh_summaries(con: duckdb.DuckDBPyConnection) -> RefreshResult:
     except BaseException:
         con.execute("ROLLBACK")
         raise
+    return new, gone, groups
+
+
+def refresh_summaries(con: duckdb.DuckDBPyConnection) -> RefreshResult:
+    """Store the summaries of every batch of `accuracy_rows` not summarised yet, in one transaction.
+
+    Costs one pass over the rows of the affected target months (and a scan of the batch ids when something
+    changed); nothing when the summaries are current. On a read-only connection nothing is stored and the
+    views compute the missing part live. DuckDB's memory limit is lowered meanwhile (REFRESH_MEMORY_LIMIT).
+    """
+    started = time.perf_counter()
+    if not _exists(con, "accuracy_summary_status"):
+        return RefreshResult("no summaries")
+    if is_read_only(con):
+        return RefreshResult("read-only")
+    if not is_stale(con):
+        return RefreshResult("current")
+    with _memory_cap(con, REFRESH_MEMORY_LIMIT):
+        new, gone, groups = _refresh(con)
     return RefreshResult("refreshed", new, gone, groups, time.perf_counter() - started)
