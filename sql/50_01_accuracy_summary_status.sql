@@ -3,8 +3,9 @@
 -- it costs nothing however long the log is: the log's row count and first and last scored_at against those
 -- of the batches summarised. The log only grows by whole batches (a new or recovered batch changes the
 -- count), and rows are only deleted by rebuild_accuracy_index, which inserts the same files again; a
--- deletion that is not refilled changes the count. When stale, accuracy_summary_batch_changes says what
--- changed.
+-- deletion that is not refilled changes the count. Not seen: rows deleted and as many others inserted
+-- between the first and last scored_at by hand, which no dyadcast command does. When stale,
+-- accuracy_summary_batch_changes says exactly what changed.
 -- Columns: stale, logged_rows, summarised_rows
 CREATE OR REPLACE VIEW accuracy_summary_status AS
 WITH logged AS (

@@ -85,3 +85,24 @@ def test_sql_features_match_pandas(con, seed, cutoff, as_of):
     expected["month"] = expected["month"].astype(got["month"].dtype)
     assert len(got) > 50
     pd.testing.assert_frame_equal(got, expected, check_dtype=False, check_exact=False, rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("seed, cutoff, as_of, horizon, start", [
+    (5, date(2023, 3, 1), date(2023, 5, 1), 1, date(2022, 9, 1)),     # training window: history before it feeds lags
+    (6, date(2023, 4, 1), date(2023, 6, 1), 9, date(2022, 3, 1)),     # window starts before 12 months of history
+    (7, date(2023, 2, 1), date(2023, 4, 1), 15, None),                # horizon above 12: targets beyond one year
+    (8, date(2023, 6, 1), date(2023, 8, 15), 24, date(2023, 1, 1)),   # the longest horizon the features accept
+])
+def test_training_window_and_horizons_match_pandas(con, seed, cutoff, as_of, horizon, start):
+    """Targets come from leads and a list window above six months, and `start` only trims rows: same as pandas."""
+    drops = random_drops(seed)
+    load_drops(con, drops)
+    fs = build_features(con, cutoff, as_of, horizon=horizon, start=start)
+    expected = reference_features(reference_panel(drops, cutoff, as_of), horizon)
+    if start is not None:
+        expected = expected[expected["month"] >= pd.Timestamp(start)].reset_index(drop=True)
+    got = fs.frame[expected.columns].reset_index(drop=True)
+    expected["month"] = expected["month"].astype(got["month"].dtype)
+    assert len(got) > 20
+    assert fs.target_names == [f"target_{h}" for h in range(1, horizon + 1)]
+    pd.testing.assert_frame_equal(got, expected, check_dtype=False, check_exact=False, rtol=1e-12, atol=1e-12)

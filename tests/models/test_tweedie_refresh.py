@@ -110,6 +110,7 @@ def test_continuation_learns_only_the_new_month_and_updates_alpha_from_its_error
         expected = np.exp(5 / 6 * np.log(before["alpha"][h]) + 1 / 6 * np.log(month))
         assert after["alpha"][h] == pytest.approx(expected, rel=1e-3)
     assert after["continuations"] == 1 and after["origin_rho"] == before["origin_rho"]
+    assert Path(after["refresh_from"]).is_dir() and before["refresh_from"] is None
     assert after["categories"] == before["categories"] and after["power"] == before["power"]
     json.dumps(after)
 

@@ -374,7 +374,8 @@ class TweedieGBM(CountModel):
                      quantile_method=self.quantile_method, learning_rate=self.learning_rate,
                      booster_rounds={str(h): int(b.current_iteration()) for h, b in self.boosters_.items()},
                      refresh_method=self.refresh_method_, continuations=self.continuations_,
-                     refresh_note=self.refresh_note_, categories=self.categories_)
+                     refresh_note=self.refresh_note_, categories=self.categories_,
+                     refresh_from=(self.params or {}).get(ARTIFACTS_KEY) if self.continuations_ else None)
         if self.interval_method == "conformal":
             state["conformal"] = self.calibrators_.metadata()
         return state

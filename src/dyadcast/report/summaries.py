@@ -35,7 +35,7 @@ CHANGES, ALL_GROUPS, GROUPS, GROUP_ROWS, SUPERSEDED, OLDER_ROWS, CURRENT = (
 MONTHS_PER_PASS = 2
 # DuckDB memory while refreshing. The rows a revision replaced may lie anywhere in a long log; read once, they
 # need not stay cached, and without a cap DuckDB keeps every block it read (1.4 GB with 120 stored runs,
-# measured). Below about 0.6 GB the refresh took the same time at that scale (measured); 1 GiB leaves room.
+# measured). Capped at 0.6 GB the refresh took the same time at that scale (measured); 1 GiB leaves room.
 REFRESH_MEMORY_LIMIT = 1 << 30
 _UNITS = {"b": 1, "bytes": 1, "kb": 10**3, "mb": 10**6, "gb": 10**9, "tb": 10**12,
           "kib": 2**10, "mib": 2**20, "gib": 2**30, "tib": 2**40}
@@ -126,17 +126,21 @@ def _bytes(setting: str) -> float | None:
 
 @contextmanager
 def _memory_cap(con: duckdb.DuckDBPyConnection, limit: int) -> Iterator[None]:
-    """Lower DuckDB's memory limit to `limit` bytes for the block, then put the previous value back."""
-    previous = str(con.execute("SELECT current_setting('memory_limit')").fetchone()[0])
+    """Lower DuckDB's memory limit to `limit` bytes for the block, then put the previous one back: the default
+    by RESET, a value set by the caller by its text (DuckDB shows it rounded to 0.1 of its unit)."""
+    setting = "SELECT current_setting('memory_limit')"
+    previous = str(con.execute(setting).fetchone()[0])
     current = _bytes(previous)
     if current is not None and current <= limit:
         yield
         return
+    con.execute("RESET memory_limit")
+    was_default = str(con.execute(setting).fetchone()[0]) == previous
     con.execute(f"SET memory_limit = '{limit}B'")
     try:
         yield
     finally:
-        con.execute(f"SET memory_limit = '{previous}'")
+        con.execute("RESET memory_limit" if was_default else f"SET memory_limit = '{previous}'")
 
 
 def _drop_temporaries(con: duckdb.DuckDBPyConnection) -> None:
