@@ -20,6 +20,8 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from dyadcast.grid import HistoryGrid
+
 KEYS = ["origin", "destination", "month"]
 DYAD = ["origin", "destination"]
 CAP = 120  # months_since_positive cap of sql/40_01_dyad_features.sql
@@ -142,6 +144,21 @@ def frame_from_arrow(table: pa.Table, horizon: int) -> pd.DataFrame:
     for h in range(horizon):
         frame[f"target_{h + 1}"] = targets[:, h]
     frame["month"] = pd.to_datetime(frame["month"])
+    return frame
+
+
+def frame_from_grid(grid: HistoryGrid) -> pd.DataFrame:
+    """dyadcast.grid's columns as a frame with the keys, in the macro's row order."""
+    dyad_rows = np.repeat(np.arange(grid.n_dyads), grid.n_anchors)
+    months = np.tile(np.arange(grid.first_anchor, grid.first_anchor + grid.n_anchors), grid.n_dyads)
+    frame = pd.DataFrame({
+        "origin": grid.origin_names.take(dyad_rows).to_pandas(),
+        "destination": grid.destination_names.take(dyad_rows).to_pandas(),
+        "month": pd.to_datetime((months - 1970 * 12).astype("datetime64[M]")),
+        **grid.columns, "calendar_month": months % 12 + 1,
+    })
+    for h, values in enumerate(grid.targets, start=1):
+        frame[f"target_{h}"] = values
     return frame
 
 

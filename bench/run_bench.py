@@ -135,6 +135,7 @@ def targets(groups: dict[str, dict[str, Any]], total_wall: float, small: bool,
                            note=f"server start {start.get('wall_s')} s" if start else "not run"))
     pandas_rec = _find(groups, "features_pandas", "pandas_features")
     for group, stage, label in (("features_sql", "sql_dyad_features", "SQL dyad_features macro"),
+                                ("features_sql", "grid_dyad_features", "feature build's dyad columns (DuckDB + numpy grid)"),
                                 ("cycle", "features", "cycle features (build_features + dormant split)")):
         sql = _find(groups, group, stage)
         ratio = pandas_rec["wall_s"] / sql["wall_s"] if pandas_rec and sql and sql.get("wall_s") else None
@@ -143,9 +144,11 @@ def targets(groups: dict[str, dict[str, Any]], total_wall: float, small: bool,
     s12, s120 = _find(groups, "score_12", "score_12_stored"), _find(groups, "score_120", "score_120_stored")
     ratio = s120["wall_s"] / s12["wall_s"] if s12 and s120 and s12.get("wall_s") else None
     out.append(_target("scoring time, 120 stored runs / 12 stored runs", ratio, 1.5, "x", note=_cpu_ratio(s120, s12)))
-    check = groups.get("features_sql", {}).get("extra", {}).get("pandas_vs_sql")
-    out.append(_target("pandas baseline vs SQL: differing cells on the sample", check and check["cells_differing"],
-                       0, "cells", note=f"{(check or {}).get('rows', 0):,} rows compared"))
+    for key, label in (("pandas_vs_sql", "SQL macro"), ("pandas_vs_grid", "grid build")):
+        check = groups.get("features_sql", {}).get("extra", {}).get(key)
+        out.append(_target(f"pandas baseline vs {label}: differing cells on the sample",
+                           check and check["cells_differing"], 0, "cells",
+                           note=f"{(check or {}).get('rows', 0):,} rows compared"))
     if budget > 0:
         out.append(_target("make bench wall time", total_wall, 900, "s"))
     else:

@@ -185,7 +185,9 @@ def features_pandas(ctx: Context, meter: Meter) -> None:
 
 
 def features_sql(ctx: Context, meter: Meter) -> None:
-    """The dyad_features macro alone (what the pandas baseline computes), then the value check."""
+    """The dyad_features macro alone (what the pandas baseline computes), the same columns as the feature build
+    computes them (dyadcast.grid), then the value checks of both against the pandas sample."""
+    from dyadcast.grid import history_grid
     from dyadcast.warehouse import open_warehouse
 
     cutoff, as_of, horizon, start = _feature_args(ctx)
@@ -194,12 +196,19 @@ def features_sql(ctx: Context, meter: Meter) -> None:
         table = con.sql("SELECT * FROM dyad_features(?, ?, ?, ?)", params=[as_of, cutoff, horizon, start]
                         ).to_arrow_table()
         rec.update(rows=table.num_rows, columns=table.num_columns)
+    with open_warehouse(ctx.ws("base").warehouse_path) as con, \
+            meter.stage("grid_dyad_features", note="the same columns as the feature build makes them: DuckDB set "
+                        "work (sql/30_05..30_07) + numpy windows (dyadcast.grid)") as rec:
+        grid = history_grid(con, as_of, cutoff, horizon, start)
+        rec.update(rows=grid.n_dyads * grid.n_anchors, columns=len(grid.columns) + len(grid.targets))
     sample_path = ctx.work / "pandas_sample.parquet"
     if sample_path.exists():
         expected = pd.read_parquet(sample_path)
-        got = pandas_features.frame_from_arrow(table, horizon).merge(
-            expected[["origin", "destination"]].drop_duplicates(), on=["origin", "destination"])
+        dyads = expected[["origin", "destination"]].drop_duplicates()
+        got = pandas_features.frame_from_arrow(table, horizon).merge(dyads, on=["origin", "destination"])
         meter.extra["pandas_vs_sql"] = pandas_features.compare(expected, got[list(expected.columns)])
+        got = pandas_features.frame_from_grid(grid).merge(dyads, on=["origin", "destination"])
+        meter.extra["pandas_vs_grid"] = pandas_features.compare(expected, got[list(expected.columns)])
 
 
 def seed(ctx: Context, meter: Meter, n_runs: int, genuine: bool = False) -> None:
@@ -210,6 +219,7 @@ def seed(ctx: Context, meter: Meter, n_runs: int, genuine: bool = False) -> None
     `genuine` (ws_12, which the cycle stages copy): the newest tweedie_gbm run is a real one instead of a copy
     (`previous_run`), so the cycle refreshes from a genuine fitted state and boosters.
     """
+    from dyadcast.report import build_report
     from dyadcast.scoring import score_pending
     from dyadcast.warehouse import open_warehouse
 
@@ -238,6 +248,9 @@ def seed(ctx: Context, meter: Meter, n_runs: int, genuine: bool = False) -> None
                                             [r.run_id for r in others], newest)
         if genuine:
             previous_run(ctx, meter, ws, con, newest)
+        with meter.stage("previous_report", note="setup, not a target: the report of the newest history month, as "
+                         "last month's cycle built it; the first build after an upgrade, summarising the whole log"):
+            build_report(con, ws, newest)
         counts = {t: con.execute(f"SELECT count(*) FROM {t}").fetchall()[0][0]
                   for t in ("snapshot_runs", "forecast_rows", "accuracy_rows", "scoring_checks")}
     meter.extra.update(workspace_mb=folder_mb(ws.root), table_rows=counts)
@@ -263,9 +276,13 @@ def score_new_month(ctx: Context, meter: Meter, n_runs: int) -> None:
 def monthly_cycle(ctx: Context, meter: Meter) -> None:
     """The monthly cycle as the flow runs it (flows/monthly_cycle.py), stage by stage, without Prefect.
 
-    Same calls as flows/steps.py; only the order differs: models other than persistence are fitted after the
-    score and report steps (see the comment below).
+    Same calls and order as flows/steps.py: features once, every model fitted and snapshotted (persistence
+    first), the feature data released (the flow's forecast step returns only the snapshot references), then
+    scoring and the report. The workspace is in the state last month's cycle left it (seed: stored runs, the
+    previous report).
     """
+    import gc
+
     from dyadcast import cycle
     from dyadcast.report import build_report
     from dyadcast.scoring import score_pending
@@ -280,18 +297,15 @@ def monthly_cycle(ctx: Context, meter: Meter) -> None:
             data = cycle.prepare(con.cursor(), config, cutoff, ctx.as_of(cutoff), progress=_quiet)
             rec.update(rows=int(len(data.train) + len(data.rows)), active_train_rows=int(len(data.active_train)),
                        dyads=int(len(data.rows)), dormant=int(len(data.dormant_rows)))
-        names = cycle.models_to_run(config)
-        for name in names[:1]:  # persistence first; the fits of slow models run last (see below)
+        for name in cycle.models_to_run(config):
             _fit_and_snapshot(meter, ws, con, data, config, name)
+        del data
+        gc.collect()
         with meter.stage("score") as rec:
             scored = score_pending(con, ws.accuracy_store())
             rec.update(rows=scored.rows_written, runs_scored=len(scored.runs_scored))
         with meter.stage("report"):
             build_report(con, ws, cutoff)
-        # Measured last so that a fit stopped by the time cap leaves every other stage measured; the sum of the
-        # stages does not depend on their order.
-        for name in names[1:]:
-            _fit_and_snapshot(meter, ws, con, data, config, name)
     meter.extra["monthly_mode"] = config.monthly_mode
     meter.extra[f"{REFRESHED_MODEL}_fit_mode"] = _previous_fit_line(ctx)
 

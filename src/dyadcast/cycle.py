@@ -99,7 +99,7 @@ def prepare(
         raise CycleError(f"no training history before {format_month(cutoff)}; load earlier months first")
     # the full frame is now held twice (train + rows are copies): keep only its schema, so the cycle's
     # peak memory is one frame rather than two (bench/README.md, memory of the cycle)
-    features = replace(features, frame=frame.iloc[0:0])
+    features = replace(features, frame=frame.iloc[0:0].copy())  # a copy: a slice would keep the frame alive
     del frame
     built = time.perf_counter()
     active_train, active_rows, dormant_rows = split_dormant(train, rows, config.zero_lookback_months)

@@ -1,9 +1,11 @@
 """Warehouse -> feature frame: the one way training, forecasting and backtests get their rows.
 
-The dyad-level work (vintages, implied zeros, lags, rolling windows, totals, targets) runs in DuckDB table
-macros under `sql/20_* .. 40_*`, parametrised by the as-of date and the cutoff, so a backtest at an old
-cutoff sees exactly what had been published then. Python only adds the country-level columns whose names
-come from the data (push / pull indicators, organic signals) and unpacks the target list.
+The set work (visible vintages, the winning vintage of each cell, the dyad universe, attributes) runs in
+DuckDB table macros under `sql/20_* .. 30_*`, parametrised by the as-of date and the cutoff, so a backtest at
+an old cutoff sees exactly what had been published then. The windows over months (lags, rolling means,
+totals, targets) are array slices on the dense dyad x month grid (`dyadcast.grid`), the same columns the SQL
+macro `dyad_features` (sql/40_01) gives analysts. Python also adds the country-level columns whose names come
+from the data (push / pull indicators, organic signals).
 """
 
 from __future__ import annotations
@@ -16,11 +18,11 @@ import duckdb
 import numpy as np
 import pandas as pd
 import pyarrow as pa
-import pyarrow.compute as pc
 
 from dyadcast import signals
 from dyadcast.config import SignalConfig
-from dyadcast.months import format_month, month_index, month_range
+from dyadcast.grid import MONTHS_SINCE_POSITIVE_CAP, anchor_dates, history_grid
+from dyadcast.months import format_month
 
 KEYS = ["origin", "destination", "month"]
 HISTORY = [
@@ -29,7 +31,6 @@ HISTORY = [
     "origin_outflow_lag_1", "origin_outflow_roll_3", "destination_inflow_lag_1", "destination_inflow_roll_3",
 ]
 ATTRIBUTES = ["log_distance", "contiguous", "common_language", "colonial_tie", "log_diaspora"]
-MONTHS_SINCE_POSITIVE_CAP = 120  # set in sql/40_01_dyad_features.sql
 
 
 class FeatureError(ValueError):
@@ -69,22 +70,6 @@ def _check_inputs(cutoff: date, as_of: date, horizon: int, start: date | None) -
             f"as_of = {as_of} is before the first day of cutoff month {format_month(cutoff)}: nothing about that "
             "month can have been published; use a later as-of date or an earlier cutoff"
         )
-
-
-def _targets(column: pa.ChunkedArray, horizon: int) -> np.ndarray:
-    """List column of fixed length `horizon` -> float matrix (rows x horizon), NULL -> NaN."""
-    flat = pc.list_flatten(column.combine_chunks())
-    return flat.to_numpy(zero_copy_only=False).astype(float).reshape(-1, horizon)
-
-
-def _codes(column: pa.ChunkedArray) -> tuple[np.ndarray, list[str]]:
-    """Integer code per row and the code -> country list (Arrow's dictionary encoding, no Python loop)."""
-    encoded = pc.dictionary_encode(column.combine_chunks())
-    return encoded.indices.to_numpy(zero_copy_only=False).astype(np.int64), encoded.dictionary.to_pylist()
-
-
-def _month_numbers(column: pa.ChunkedArray) -> np.ndarray:
-    return pc.add(pc.multiply(pc.year(column), 12), pc.subtract(pc.month(column), 1)).to_numpy().astype(np.int64)
 
 
 def _country_columns(
@@ -130,25 +115,21 @@ def build_features(
     cutoff, as_of = _first_of_month(cutoff, "cutoff"), _as_date(as_of, "as_of")
     start = None if start is None else _first_of_month(start, "start")
     _check_inputs(cutoff, as_of, horizon, start)
-    table = con.sql(
-        "SELECT * FROM dyad_features(?, ?, ?, ?)", params=[as_of, cutoff, horizon, start]
-    ).to_arrow_table()
-    if table.num_rows == 0:
+    grid = history_grid(con, as_of, cutoff, horizon, start)
+    if grid is None:
         window = "" if start is None else f" from start = {format_month(start)}"
         raise FeatureError(
             f"no flows published on or before {as_of} report a month up to {format_month(cutoff)}{window}; "
             "load flows files first or choose a later as-of date"
         )
-    targets = _targets(table.column("targets"), horizon)
-    origin_codes, origins = _codes(table.column("origin"))
-    destination_codes, destinations = _codes(table.column("destination"))
-    month_numbers = _month_numbers(table.column("month"))
-    first, last = int(month_numbers.min()), month_index(cutoff)
-    rel, n_months = month_numbers - first, last - first + 1
-    months = month_range(date(first // 12, first % 12 + 1, 1), cutoff)
-
-    outflow = np.full((len(origins), n_months), np.nan)  # training outflow for the signal choice
-    outflow[origin_codes, rel] = table.column("origin_outflow_lag_1").to_numpy()
+    targets, origins, destinations = grid.targets, grid.origins, grid.destinations
+    n_months = grid.n_anchors
+    origin_codes = np.repeat(grid.origin_code, n_months)
+    destination_codes = np.repeat(grid.destination_code, n_months)
+    rel = np.tile(np.arange(n_months), grid.n_dyads)
+    months = anchor_dates(grid)
+    first = grid.first_anchor
+    outflow = grid.outflow  # training outflow for the signal choice
     push = _indicators(con, "push_indicators", "push_", as_of, cutoff)
     pull = _indicators(con, "pull_indicators", "pull_", as_of, cutoff)
     signal_long, evidence = signals.signal_features(
@@ -160,13 +141,18 @@ def build_features(
 
     target_names = [f"target_{h}" for h in range(1, horizon + 1)]
     feature_names = [*HISTORY, *push_cols, *pull_cols, *ATTRIBUTES, "calendar_month", *signal_cols]
-    computed = {**push_cols, **pull_cols, **signal_cols, **{n: targets[:, h] for h, n in enumerate(target_names)}}
-    computed["month"] = pc.cast(table.column("month"), pa.timestamp("us"))
-    computed["calendar_month"] = pc.cast(table.column("calendar_month"), pa.int64())
+    computed = {**push_cols, **pull_cols, **signal_cols, **dict(zip(target_names, targets, strict=True))}
+    month_numbers = first + rel
+    computed["month"] = pa.array((month_numbers - 1970 * 12).astype("datetime64[M]").astype("datetime64[us]"))
+    computed["calendar_month"] = month_numbers % 12 + 1
+    dyad_rows = np.repeat(np.arange(grid.n_dyads), n_months)
+    computed["origin"] = grid.origin_names.take(dyad_rows)
+    computed["destination"] = grid.destination_names.take(dyad_rows)
+    computed.update(grid.columns)
     # One Arrow table in the final column order, converted to pandas once (buffers freed as they go).
-    final = pa.table({name: computed[name] if name in computed else table.column(name)
-                      for name in [*KEYS, *feature_names, *target_names]})
-    del table, computed, push_cols, pull_cols, signal_cols
+    final = pa.table({name: computed[name] for name in [*KEYS, *feature_names, *target_names]})
+    rows_with_target_1 = int(np.isfinite(targets[0]).sum())
+    del computed, push_cols, pull_cols, signal_cols, grid, targets
     frame = final.to_pandas(split_blocks=True, self_destruct=True)
     del final
 
@@ -180,7 +166,7 @@ def build_features(
         "dyads": len(origin_codes) // len(months),
         "anchor_months": len(months),
         "forecast_rows": int((rel == n_months - 1).sum()),
-        "rows_with_target_1": int(np.isfinite(targets[:, 0]).sum()),
+        "rows_with_target_1": rows_with_target_1,
         "push_columns": [n for n in feature_names if n.startswith("push_")],
         "pull_columns": [n for n in feature_names if n.startswith("pull_")],
         "signals": evidence,

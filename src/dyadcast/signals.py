@@ -254,13 +254,16 @@ def signal_features(
     """Long frame (country, month, name, value) of `signal_<name>` for the anchor `months`, and the evidence.
 
     `outflow` (origins x months, NaN where unknown) is the training target of the choice: the caller's
-    anchor months, so a training window limits the choice too. Only signal rows published by `as_of` and
-    days up to the end of the cutoff month are read.
+    anchor months, so a training window limits the choice too. Only signal rows published by `as_of`, and
+    days from the first one any candidate reads up to the end of the cutoff month, are read.
     """
     validate_config(config)
     end = add_months(cutoff, 1) - timedelta(days=1)
+    # the earliest day any candidate reads: the first anchor month, less the longest lead and smoothing window
+    begin = months[0] - timedelta(days=config.lag_days_max + max(config.window_days) + 1)
     daily = con.sql(
-        "SELECT country, date, signal, intensity FROM signals_as_of(?) WHERE date <= ?", params=[as_of, end]
+        "SELECT country, date, signal, intensity FROM signals_as_of(?) WHERE date BETWEEN ? AND ?",
+        params=[as_of, begin, end],
     ).df()
     if daily.empty:
         return pd.DataFrame(columns=["country", "month", "name", "value"]), {}

@@ -52,8 +52,9 @@ def test_target_verdicts_and_lower_bounds():
         "backfill_dense": {"status": "ok", "records": [{**_record("dense_flows_ingest", 25.0),
                                                         "rows_by_kind": {"flows": 9_600_000}}]},
         "features_pandas": {"status": "ok", "records": [_record("pandas_features", 100.0)]},
-        "features_sql": {"status": "ok", "records": [_record("sql_dyad_features", 8.0)],
-                         "extra": {"pandas_vs_sql": {"cells_differing": 0, "rows": 10}}},
+        "features_sql": {"status": "ok", "records": [_record("sql_dyad_features", 8.0), _record("grid_dyad_features", 4.0)],
+                         "extra": {"pandas_vs_sql": {"cells_differing": 0, "rows": 10},
+                                   "pandas_vs_grid": {"cells_differing": 3, "rows": 10}}},
         "score_12": {"status": "ok", "records": [_record("score_12_stored", 10.0)]},
         "score_120": {"status": "stopped at the 180 s cap", "records": [_record("score_120_stored", 12.0, status="x")]},
         "cycle": {"status": "stopped at the 900 s cap", "records": [_record("features", 30.0, 3000.0),
@@ -63,6 +64,9 @@ def test_target_verdicts_and_lower_bounds():
     assert verdict["backfill ingest of the dense flows file (every dyad-month)"]["met"] is True
     assert verdict["pandas time / SQL dyad_features macro time"]["value"] == 12.5
     assert verdict["pandas time / SQL dyad_features macro time"]["met"] is True
+    assert verdict["pandas time / feature build's dyad columns (DuckDB + numpy grid) time"]["value"] == 25.0
+    assert verdict["pandas baseline vs SQL macro: differing cells on the sample"]["met"] is True
+    assert verdict["pandas baseline vs grid build: differing cells on the sample"]["met"] is False
     assert verdict["pandas time / cycle features (build_features + dormant split) time"]["value"] == 3.33
     assert verdict["pandas time / cycle features (build_features + dormant split) time"]["met"] is False
     assert verdict["scoring time, 120 stored runs / 12 stored runs"]["met"] is None  # stopped: not a measurement

@@ -106,3 +106,31 @@ def test_training_window_and_horizons_match_pandas(con, seed, cutoff, as_of, hor
     assert len(got) > 20
     assert fs.target_names == [f"target_{h}" for h in range(1, horizon + 1)]
     pd.testing.assert_frame_equal(got, expected, check_dtype=False, check_exact=False, rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("seed, cutoff, as_of, horizon, start", [
+    (9, date(2023, 3, 1), date(2023, 5, 1), 4, None),
+    (10, date(2023, 4, 1), date(2023, 6, 1), 9, date(2022, 3, 1)),
+    (11, date(2023, 6, 1), date(2023, 8, 15), 2, date(2023, 1, 1)),
+])
+def test_sql_macro_matches_pandas_and_the_feature_build(con, seed, cutoff, as_of, horizon, start):
+    """The analysts' macro dyad_features (sql/40_01) and the grid build (dyadcast.grid) give the same rows."""
+    drops = random_drops(seed)
+    load_drops(con, drops)
+    table = con.sql("SELECT * FROM dyad_features(?, ?, ?, ?)", params=[as_of, cutoff, horizon, start]).to_arrow_table()
+    macro = table.drop_columns(["targets"]).to_pandas()
+    targets = np.array(table.column("targets").to_pylist(), dtype=float).reshape(-1, horizon)
+    for h in range(horizon):
+        macro[f"target_{h + 1}"] = targets[:, h]
+    macro["month"] = pd.to_datetime(macro["month"])
+    expected = reference_features(reference_panel(drops, cutoff, as_of), horizon)
+    if start is not None:
+        expected = expected[expected["month"] >= pd.Timestamp(start)].reset_index(drop=True)
+    expected["month"] = expected["month"].astype(macro["month"].dtype)
+    assert len(macro) > 20
+    pd.testing.assert_frame_equal(macro[expected.columns], expected, check_dtype=False, check_exact=False,
+                                  rtol=1e-12, atol=1e-12)
+    built = build_features(con, cutoff, as_of, horizon=horizon, start=start).frame
+    built["month"] = built["month"].astype(macro["month"].dtype)
+    pd.testing.assert_frame_equal(built[macro.columns].reset_index(drop=True), macro, check_dtype=False,
+                                  check_exact=False, rtol=1e-12, atol=1e-12)
