@@ -16,10 +16,8 @@ cycle refreshes from a genuine fitted state and boosters as a monthly user's wor
 
 from __future__ import annotations
 
-import json
 from collections.abc import Sequence
 from datetime import date
-from pathlib import Path
 from typing import Any
 
 import duckdb
@@ -28,9 +26,7 @@ import pandas as pd
 
 from dyadcast import cycle
 from dyadcast.months import add_months, format_month
-from dyadcast.snapshots import ARTIFACTS_DIR, SnapshotRef, index_snapshot, write_snapshot
-
-ARTIFACTS_KEY = "artifacts_dir"  # dyadcast.models.tweedie_gbm.ARTIFACTS_KEY (not imported: LightGBM is heavy)
+from dyadcast.snapshots import SnapshotRef, index_snapshot, write_snapshot
 
 
 def source_forecast(con: duckdb.DuckDBPyConnection, cutoff: date, as_of: date, horizon: int) -> pd.DataFrame:
@@ -136,30 +132,13 @@ def copy_scored_state(con: duckdb.DuckDBPyConnection, accuracy_dir: str, templat
 
 
 def monthly_options(con: duckdb.DuckDBPyConnection, name: str, mode: str, cutoff: date) -> tuple[dict[str, Any], str]:
-    """`cycle.model_options(con, name, mode, cutoff)`, and where the stored model files came from.
-
-    Why the second part: a refresh continues last month's boosters only when it is told their folder
-    (`params["artifacts_dir"]`). When `cycle.model_options` does not pass it yet, the folder of the same
-    snapshot it read the state from is added here (same query), and the returned note says so, so the
-    benchmark's figure is never mistaken for what an unchanged cycle does.
-    """
+    """`cycle.model_options(con, name, mode, cutoff)`, as a monthly run calls it, and where the options came from
+    (recorded with the stage, so a benchmark figure is never mistaken for something a cycle does not do)."""
     cursor = con.cursor()  # its own connection: a fetchone() left open must not block the caller's next query
     try:
-        options = cycle.model_options(cursor, name, mode, cutoff)
-        params = options.get("params")
-        if not params or ARTIFACTS_KEY in params:
-            return options, "cycle.model_options"
-        rows = cursor.execute(
-            "SELECT path, metadata_json FROM snapshot_runs WHERE model = ? AND cutoff < ? "
-            "ORDER BY cutoff DESC, created_at DESC LIMIT 1", [name, cutoff]).fetchall()
+        return cycle.model_options(cursor, name, mode, cutoff), "cycle.model_options"
     finally:
         cursor.close()
-    row = rows[0] if rows else None
-    if row is None or not json.loads(row[1]).get("artifacts"):
-        return options, "cycle.model_options (the stored snapshot has no model files)"
-    folder = str(Path(row[0]) / ARTIFACTS_DIR)
-    return ({**options, "params": {**params, ARTIFACTS_KEY: folder}},
-            "cycle.model_options + the snapshot's artifacts folder added by bench/seed_runs.py")
 
 
 def mode_of(options: dict[str, Any]) -> str:

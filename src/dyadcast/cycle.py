@@ -11,6 +11,7 @@ import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
 from datetime import date
+from pathlib import Path
 from typing import Any
 
 import duckdb
@@ -21,7 +22,8 @@ from dyadcast.features import FeatureSet, build_features
 from dyadcast.models.base import CountModel
 from dyadcast.models.registry import make_model
 from dyadcast.months import add_months, format_month
-from dyadcast.snapshots import SnapshotRef, new_run_id, write_snapshot
+from dyadcast.snapshots import ARTIFACTS_DIR, ARTIFACTS_KEY, SnapshotRef, new_run_id, write_snapshot
+from dyadcast.stores import is_local
 
 BASELINES = ("persistence", "seasonal_persistence", "rolling_mean")
 REFERENCE_MODEL = "persistence"
@@ -205,13 +207,27 @@ def model_options(con: duckdb.DuckDBPyConnection, name: str, mode: str, cutoff: 
     if mode == "fit":
         return {"tune": True}
     rows = con.execute(
-        "SELECT metadata_json FROM snapshot_runs WHERE model = ? AND cutoff < ? "
+        "SELECT path, metadata_json FROM snapshot_runs WHERE model = ? AND cutoff < ? "
         "ORDER BY cutoff DESC, created_at DESC LIMIT 1", [name, cutoff]
     ).fetchall()
     if not rows:
         return {"tune": True}
-    state = json.loads(rows[0][0]).get("fitted_state") or {}
-    return {"tune": False, "params": state} if state else {"tune": True}
+    path, metadata_json = rows[0]
+    metadata = json.loads(metadata_json)
+    state = metadata.get("fitted_state") or {}
+    if not state:
+        return {"tune": True}
+    return {"tune": False, "params": {**state, **_stored_files(model_class(name), path, metadata)}}
+
+
+def _stored_files(cls: type, path: str, metadata: dict[str, Any]) -> dict[str, str]:
+    """The folder of the stored snapshot's model files, for a model that continues from them (tweedie_gbm
+    continues last month's boosters). Local stores only: the model reads them as files; with an object store
+    it refits with the stored state instead, and says so in its `refresh_note`."""
+    if not getattr(cls, "continues_from_artifacts", False) or not metadata.get("artifacts") or not is_local(path):
+        return {}
+    folder = Path(str(path).removeprefix("file://")) / ARTIFACTS_DIR
+    return {ARTIFACTS_KEY: str(folder)} if folder.is_dir() else {}
 
 
 def accuracy_weights_source(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:

@@ -34,6 +34,7 @@ from dyadcast.stores import StorePath, commit_folder, list_runs, store_fs, store
 FORECAST_FILE = "forecast.parquet"
 METADATA_FILE = "metadata.json"
 ARTIFACTS_DIR = "artifacts"
+ARTIFACTS_KEY = "artifacts_dir"  # in a refreshed model's params: the folder of last month's model files
 INDEXED_QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
 LIBRARIES = ("dyadcast", "duckdb", "pandas", "pyarrow", "numpy", "scipy", "statsmodels", "lightgbm", "pyfixest",
              "prefect", "great-expectations")

@@ -7,11 +7,11 @@ from pathlib import Path
 
 import global_panel as gp
 from _tiny_warehouse import tiny_warehouse
-from seed_runs import ARTIFACTS_KEY, mode_of, monthly_options
+from seed_runs import mode_of, monthly_options
 
 from dyadcast import cycle
 from dyadcast.config import Config
-from dyadcast.snapshots import index_snapshot
+from dyadcast.snapshots import ARTIFACTS_KEY, index_snapshot
 
 
 def _snapshot(con, store: Path, config: Config, cutoff, name: str, options: dict) -> dict:  # noqa: ANN001
@@ -35,10 +35,30 @@ def test_a_refresh_after_a_genuine_snapshot_continues_its_boosters(tmp_path):
     assert mode_of(options) == "refresh" and options["params"]["power"] == stored["power"]
     folder = Path(options["params"][ARTIFACTS_KEY])
     assert folder.name == "artifacts" and (folder / "tweedie_gbm_h1.txt").is_file()
-    assert "cycle.model_options" in source
+    assert source == "cycle.model_options"  # the cycle itself passes the stored boosters
     state = _snapshot(con, tmp_path / "snapshots", config, cutoff, "tweedie_gbm", options)
     assert state["refresh_method"] == "continued" and state["continuations"] == 1, state["refresh_note"]
 
     assert monthly_options(con, "persistence", "refresh", cutoff) == ({}, "cycle.model_options")
     assert mode_of({}) == "n/a (no hyper-parameters)" and mode_of({"tune": True}) == "fit"
     assert mode_of(monthly_options(con, "tweedie_gbm", "fit", cutoff)[0]) == "fit"
+
+
+def test_the_stored_boosters_are_passed_only_from_a_local_store_and_only_to_the_model_that_reads_them(tmp_path):
+    from datetime import date
+
+    from dyadcast.warehouse import open_warehouse
+
+    local = tmp_path / "cutoff=2025-01" / "model=tweedie_gbm" / "run=a"
+    (local / "artifacts").mkdir(parents=True)
+    metadata = '{"fitted_state": {"power": {"1": 1.3}}, "artifacts": ["tweedie_gbm_h1.txt"]}'
+    with open_warehouse(tmp_path / "w.duckdb") as con:
+        insert = "INSERT INTO snapshot_runs VALUES (?, ?, ?, 'monthly', ?, now(), ?, ?)"
+        con.execute(insert, ["a", date(2025, 1, 1), "tweedie_gbm", date(2025, 2, 1), str(local), metadata])
+        options = cycle.model_options(con, "tweedie_gbm", "refresh", date(2025, 2, 1))
+        assert options["params"][ARTIFACTS_KEY] == str(local / "artifacts") and options["tune"] is False
+        con.execute(insert, ["b", date(2025, 1, 1), "zinb", date(2025, 2, 1), str(local), metadata])
+        assert ARTIFACTS_KEY not in cycle.model_options(con, "zinb", "refresh", date(2025, 2, 1))["params"]
+        con.execute(insert, ["c", date(2025, 2, 1), "tweedie_gbm", date(2025, 3, 1), "memory://bucket/run=c", metadata])
+        remote = cycle.model_options(con, "tweedie_gbm", "refresh", date(2025, 3, 1))
+        assert remote["params"] == {"power": {"1": 1.3}}  # object store: refit with the stored state

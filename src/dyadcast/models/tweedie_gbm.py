@@ -57,9 +57,9 @@ from dyadcast.distributions import fit_nb_alpha, nbinom_p_positive, nbinom_quant
 from dyadcast.models.base import CountModel, NotFittedError, quantile_column, target_column, target_months
 from dyadcast.models.conformal import ConformalCalibrator, estimate_origin_rho
 from dyadcast.models.design import target_calendar_month
+from dyadcast.snapshots import ARTIFACTS_KEY
 
 CATEGORICAL = ("origin", "destination")
-ARTIFACTS_KEY = "artifacts_dir"  # in `params`: the folder holding last month's tweedie_gbm_h<h>.txt
 CONTINUATION_KEYS = ("categories", "last_target_month", "features", "alpha")
 
 
@@ -82,6 +82,7 @@ def booster_file(horizon: int) -> str:
 
 class TweedieGBM(CountModel):
     name = "tweedie_gbm"
+    continues_from_artifacts = True  # cycle.model_options passes the stored boosters' folder (ARTIFACTS_KEY)
     quantile_method = "parametric:nb-on-gbm-mean"
 
     def __init__(self, horizon: int = 6, quantiles: Sequence[float] = DEFAULT_QUANTILES, seed: int = 0,
