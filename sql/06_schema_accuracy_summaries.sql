@@ -9,7 +9,7 @@
 -- views read the tables, so a rerun only adds groups.
 --
 -- Written by dyadcast.report.summaries.refresh_summaries (at the start of every report build). Between a
--- scoring and the next refresh the views add a live computation of the stale groups (sql/50_01-50_17), so
+-- scoring and the next refresh the views add a live computation of the stale groups (sql/50_13-50_18), so
 -- no reader ever sees out-of-date numbers. Emptying these tables only makes the next read slower.
 
 -- The batches (accuracy_rows.batch_id) whose rows the tables below include.

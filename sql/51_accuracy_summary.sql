@@ -1,6 +1,6 @@
 -- Layer 50 (accuracy). accuracy_summary: one row per model x run_kind x horizon x cutoff x vintage x level,
 -- over the rows of accuracy_current (newest run per cutoff, newest row per vintage). Computed from the
--- per-group sums of accuracy_groups (sql/50_12), not from the log, so it costs the same however long the
+-- per-group sums of accuracy_groups (sql/50_15), not from the log, so it costs the same however long the
 -- history is; the numbers are those of the plain averages over accuracy_current.
 -- Columns:
 --   model, run_kind, horizon, cutoff, vintage, level   the group

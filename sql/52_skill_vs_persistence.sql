@@ -4,7 +4,7 @@
 -- actual_vintage_key). Rows come from accuracy_current (newest run per cutoff x model x run kind); each
 -- cutoff counts once per model: its monthly run where there is one, else its backtest (the rule of
 -- accuracy_overview), so a month that was both backtested and run live is not counted twice.
--- Computed from the per-group sums of accuracy_groups and the matched sums of accuracy_pairs (sql/50_12-13;
+-- Computed from the per-group sums of accuracy_groups and the matched sums of accuracy_pairs (sql/50_15-16;
 -- is_skill_run of accuracy_summary_runs is the run rule above), not from the log.
 -- Columns:
 --   model, horizon, vintage, level

@@ -1,6 +1,6 @@
 -- Layer 50 (accuracy). exceedances: the early-warning list. Dyads whose actual came in above the upper
 -- (95 %) quantile of the one-month-ahead forecast (horizon 1), from accuracy_current (newest run per
--- cutoff, newest row per vintage). Read from accuracy_exceedance_candidates (sql/50_14), which keeps these
+-- cutoff, newest row per vintage). Read from accuracy_exceedance_candidates (sql/50_17), which keeps these
 -- rows per run, not from the log.
 -- Columns: model, run_kind, cutoff, run_id, target_month, vintage, origin, destination, actual, mean, q500,
 --   q950, excess (actual - q950), excess_ratio (actual / q950; NULL when q950 = 0),

@@ -1,7 +1,7 @@
 -- Layer 50 (accuracy). accuracy_by_horizon: one row per model x horizon x vintage x level, pooled over every
 -- cutoff in accuracy_current, each cutoff once per model (its monthly run where there is one, else its
 -- backtest, as in skill_vs_persistence), with the relative scores of skill_vs_persistence.
--- `dyadcast score` prints it. Computed from the per-group sums of accuracy_groups (sql/50_12).
+-- `dyadcast score` prints it. Computed from the per-group sums of accuracy_groups (sql/50_15).
 -- Columns: model, horizon, vintage, level, n, n_cutoffs, first_cutoff, last_cutoff, mae, rmse, mase,
 --   mean_wis, coverage_50, coverage_90, bias, exceedance_rate, relative_wis, relative_mae, n_common, note.
 CREATE OR REPLACE VIEW accuracy_by_horizon AS

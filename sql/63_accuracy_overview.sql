@@ -2,7 +2,7 @@
 -- of accuracy_log that count (is_reference_run AND is_current): one run per cutoff and model (the newest
 -- monthly run, else the newest backtest, so nothing is counted twice) and the newest scoring of each
 -- forecast. The per-row measures come from the scoring step; here they are averaged, from the per-group sums
--- of accuracy_groups (sql/50_12; is_reference_run of accuracy_summary_runs is the run rule above), so the
+-- of accuracy_groups (sql/50_15; is_reference_run of accuracy_summary_runs is the run rule above), so the
 -- view costs the same however long the log is. The scoring view accuracy_summary groups by run kind
 -- instead. To pool several cutoffs, weight each row by n (rmse: the n-weighted mean of rmse², then the root).
 --

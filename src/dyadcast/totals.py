@@ -434,10 +434,41 @@ class _Chunk:
             slope[:, :-1] = np.nan_to_num((root[1:] - root[:-1]) / (z_knot[:, 1:] - z_knot[:, :-1]), posinf=0.0)
         stored = self.prefix[self.offset[rows[wide[which]]] + j] & ((1 << d.kbits) - 1)
         z = Z_BOUND - ((stored >> d.dbits) + 0.5) / d.scale
-        x = root[knot] + slope.ravel()[at] * np.maximum(z - z_knot.ravel()[at], 0.0)
+        with np.errstate(invalid="ignore"):  # 0 x inf at a knot without a finite z: redone just below
+            x = root[knot] + slope.ravel()[at] * np.maximum(z - z_knot.ravel()[at], 0.0)
+        _open_intervals(x, law, wide, which, knot, z, z_knot, root, slope)
         top = np.append(k[1:], np.inf)[knot]
         value = np.clip(np.ceil(x**3 - 1e-9), k[knot] + 1, top)
         return wide[which], j, value
+
+
+def _open_intervals(x: np.ndarray, law: _Law, wide: np.ndarray, which: np.ndarray, knot: np.ndarray, z: np.ndarray,
+                    z_knot: np.ndarray, root: np.ndarray, slope: np.ndarray) -> None:
+    """Cube roots (in `x`, in place) of the draws above a knot whose P(draw > k) rounds to 1 (z = -inf).
+
+    Why: for a large flow with little spread (Poisson-like rows of 3,000 arrivals or more) the knot below the
+    mass lies far enough out that P(draw > k) is 1 in floating point; the line from it to the next knot is
+    undefined, and its draws came out NaN, and so did every total they entered. Such a draw lies on the line
+    through the next knot, with the slope of the interval above it when both its knots are finite, else the
+    Wilson-Hilferty slope of the dyad's NB, sd / (3 mean^(2/3)) (the cube root of a gamma-like count is close
+    to linear in the normal score: Wilson & Hilferty 1931, PNAS, from memory). The knot above a dyad's mass
+    keeps a finite z: `fit_hurdle_nb` reads rows of large flows back with alpha of at least about 6e-5 (the
+    lower end of its grid, refined), so sd >= 0.008 mean and that knot lies within about 25 sd, where
+    P(draw > k), computed directly (`_knots`), does not underflow.
+    """
+    finite = np.isfinite(z_knot)
+    open_below = np.zeros(finite.shape, dtype=bool)
+    open_below[:, :-1] = ~finite[:, :-1] & finite[:, 1:]
+    sel = np.flatnonzero(open_below[which, knot])
+    if sel.size == 0:
+        return
+    r, c = which[sel], knot[sel]
+    above = np.minimum(c + 1, root.size - 2)  # the interval above: knots c + 1 and c + 2
+    usable = (c + 2 < root.size) & finite[r, above + 1] & (slope[r, above] > 0)
+    n, fail = law.n[wide[r]], law.fail[wide[r]]
+    mean = n * fail / (1.0 - fail)
+    wilson_hilferty = np.sqrt(n * fail) / (1.0 - fail) / (3.0 * np.cbrt(mean) ** 2)
+    x[sel] = root[c + 1] + np.where(usable, slope[r, above], wilson_hilferty) * (z[sel] - z_knot[r, c + 1])
 
 
 def _runs(union: np.ndarray, rows: np.ndarray, npos: np.ndarray, nthr: np.ndarray, thr_row: np.ndarray,

@@ -14,11 +14,13 @@ from dyadcast.models.base import forecast_columns
 from dyadcast.models.baselines import (
     BUCKET_EDGES,
     Persistence,
+    ResidualQuantiles,
     RollingMean,
     SeasonalPersistence,
     last_observed,
+    sampled_positions,
 )
-from dyadcast.models.design import horizon_rows
+from dyadcast.models.design import horizon_rows, subsample
 from dyadcast.models.registry import make_model
 
 LEVELS = (0.05, 0.25, 0.5, 0.75, 0.95)
@@ -119,3 +121,23 @@ def test_fitted_state_is_json_and_fit_is_fast() -> None:
         assert len(out) == 6 * 360 and not out.isna().any().any()
         state = json.loads(json.dumps(model.fitted_state()))
         assert set(state["residual_distribution"]) == {str(h) for h in range(1, 7)}
+
+
+def test_sampled_fit_rows_are_the_rows_the_frame_subsample_keeps() -> None:
+    """The fit picks its rows by position (no copy of the whole frame); they must be the rows that
+    `subsample(horizon_rows(...))` (pandas' seeded `sample`) keeps, so forecasts stay as they were."""
+    sim = simulate(n_origins=6, n_destinations=10, n_months=48, horizon=3, missing_share=0.05, seed=3)
+    frame = sim.frame.iloc[::-1]  # labels no longer equal positions, and they fall
+    for h, max_rows in ((1, 500), (3, 1000), (2, None), (2, 10**6)):
+        expected = subsample(horizon_rows(frame, h), max_rows, 7 + h).index
+        got = frame.index[sampled_positions(frame, h, max_rows, 7 + h)]
+        assert sorted(got) == sorted(expected) and len(got) == len(expected)
+    assert len(expected) < len(frame)  # rows without a known target are left out
+
+    # and the whole fit agrees with one fitted on the copied rows, bucket by bucket
+    for cls in (Persistence, SeasonalPersistence, RollingMean):
+        model = cls(horizon=3, quantiles=LEVELS, max_rows=700, seed=5).fit(frame)
+        for h in (1, 2, 3):
+            rows = subsample(horizon_rows(frame, h), 700, 5 + h)
+            reference = ResidualQuantiles(LEVELS).fit(rows[f"target_{h}"].to_numpy(dtype=float), model.point(rows, h))
+            assert model.residual_[h].state() == reference.state(), (cls.name, h)

@@ -119,3 +119,17 @@ def test_forecast_with_dormant_covers_every_dyad_once():
     assert len(forecast) == 2 * len(sim.rows)
     assert not forecast.duplicated(["origin", "destination", "horizon"]).any()
     assert sleeper.is_fitted
+
+
+def test_split_matches_pairs_as_a_multiindex_does() -> None:
+    """The split looks dyads up by integer codes; the pairs it keeps must be those MultiIndex.isin keeps,
+    including a code absent from training, a pair whose two codes exist apart, and missing codes."""
+    from dyadcast.models.dormant import _in_dyads
+
+    frame = pd.DataFrame({"origin": ["A", "A", "B", "B", None, "C", "A"],
+                          "destination": ["x", "y", "x", "y", "x", None, "x"]}).astype("str")
+    dyads = pd.DataFrame({"origin": ["A", "B", "D", None, "C", "C"],
+                          "destination": ["x", "y", "x", "x", "y", None]}).astype("str")
+    expected = pd.MultiIndex.from_frame(frame).isin(pd.MultiIndex.from_frame(dyads))
+    assert _in_dyads(frame, dyads).tolist() == expected.tolist() == [True, False, False, True, True, True, True]
+    assert not _in_dyads(frame, dyads.iloc[0:0]).any()

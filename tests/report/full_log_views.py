@@ -1,72 +1,49 @@
-"""The accuracy views as they were first written: plain aggregates over every row of the log (through the
-views accuracy_current and accuracy_log, which still read the whole log). The tests use them as the oracle
-for the views that now read the summaries (sql/50_*, 51-54, 63): same rows, same numbers.
+"""The accuracy views as they were first written (before the summaries, commit 09871df): plain aggregates over
+every row of the log, through the views accuracy_current and accuracy_log, which still read the whole log and
+do not touch the summaries. The tests use them as the oracle for the views that now read the summaries
+(sql/50_*, 51-54, 63): same rows, same numbers. accuracy_by_horizon joins the full-log skill_vs_persistence
+below, not the view of that name.
 """
 
 from __future__ import annotations
 
-FULL_LOG = {
-    "accuracy_summary": """
-WITH summary_groups AS MATERIALIZED (
-    SELECT * FROM accuracy_groups
-)
-SELECT
-    g.model, g.run_kind, g.horizon, g.cutoff, g.vintage, g.level,
-    CAST(sum(g.n) AS BIGINT) AS n,
-    sum(g.sum_abs_error) / sum(g.n) AS mae,
-    sqrt(sum(g.sum_sq_error) / sum(g.n)) AS rmse,
-    sum(g.sum_scaled_error) / nullif(sum(g.n_scaled), 0) AS mase,
-    sum(g.sum_poisson_deviance) / sum(g.n) AS mean_poisson_deviance,
-    sum(g.sum_tweedie_deviance) / sum(g.n) AS mean_tweedie_deviance,
-    sum(g.n_covered_50) / sum(g.n) AS coverage_50,
-    sum(g.n_covered_90) / sum(g.n) AS coverage_90,
-    sum(g.sum_wis) / sum(g.n) AS mean_wis,
-    sum(g.sum_wis_dispersion) / sum(g.n) AS mean_wis_dispersion,
-    sum(g.sum_wis_overprediction) / sum(g.n) AS mean_wis_overprediction,
-    sum(g.sum_wis_underprediction) / sum(g.n) AS mean_wis_underprediction,
-    sum(g.sum_error) / sum(g.n) AS bias,
-    sum(g.n_true_positive) / nullif(sum(g.n_predicted_positive), 0) AS precision,
-    sum(g.n_true_positive) / nullif(sum(g.n_actual_positive), 0) AS recall,
-    CAST(sum(g.n_actual_positive) AS BIGINT) AS n_positive,
-    CAST(sum(g.n_exceeded) AS BIGINT) AS exceedances,
-    sum(g.n_exceeded) / sum(g.n) AS exceedance_rate
-FROM summary_groups AS g
-SEMI JOIN accuracy_summary_runs_of('summary_groups') AS r ON r.run_id = g.run_id AND r.is_latest_run
-GROUP BY g.model, g.run_kind, g.horizon, g.cutoff, g.vintage, g.level
-""",
-    "skill_vs_persistence": """
-WITH summary_groups AS MATERIALIZED (
-    SELECT * FROM accuracy_groups
+# Each cutoff once per model: the newest runs of its first run kind, monthly first.
+SKILL_ROWS = """
+    SELECT * FROM accuracy_current
+    QUALIFY dense_rank() OVER (PARTITION BY cutoff, model ORDER BY (run_kind = 'monthly') DESC) = 1
+"""
+
+SKILL_VS_PERSISTENCE = f"""
+WITH model_rows AS ({SKILL_ROWS}),
+persistence_rows AS (
+    SELECT * FROM model_rows WHERE model = 'persistence'
 ),
-skill_runs AS MATERIALIZED (
-    SELECT run_id, model FROM accuracy_summary_runs_of('summary_groups') WHERE is_skill_run
-),
-model_groups AS MATERIALIZED (
-    SELECT g.model, g.horizon, g.vintage, g.level, g.n
-    FROM summary_groups AS g
-    SEMI JOIN skill_runs AS r ON r.run_id = g.run_id
+common AS (
+    SELECT m.model, m.horizon, m.vintage, m.level,
+           m.wis AS wis_m, p.wis AS wis_p, m.abs_error AS ae_m, p.abs_error AS ae_p
+    FROM model_rows AS m
+    JOIN persistence_rows AS p
+      ON  p.cutoff = m.cutoff AND p.run_kind = m.run_kind AND p.level = m.level
+      AND p.origin = m.origin AND p.destination = m.destination AND p.target_month = m.target_month
+      AND p.horizon = m.horizon AND p.vintage = m.vintage AND p.actual_vintage_key = m.actual_vintage_key
 ),
 compared AS (
-    SELECT r.model, p.horizon, p.vintage, p.level,
-           CAST(sum(p.n_common) AS BIGINT) AS n_common,
-           sum(p.sum_wis) / nullif(sum(p.sum_wis_persistence), 0) AS relative_wis,
-           sum(p.sum_abs_error) / nullif(sum(p.sum_abs_error_persistence), 0) AS relative_mae,
-           sum(p.sum_wis) / sum(p.n_common) AS mean_wis,
-           sum(p.sum_wis_persistence) / sum(p.n_common) AS persistence_mean_wis,
-           sum(p.sum_abs_error) / sum(p.n_common) AS mae,
-           sum(p.sum_abs_error_persistence) / sum(p.n_common) AS persistence_mae
-    FROM accuracy_pairs AS p
-    JOIN skill_runs AS r ON r.run_id = p.run_id
-    SEMI JOIN skill_runs AS pr ON pr.run_id = p.persistence_run_id AND pr.model = 'persistence'
-    GROUP BY r.model, p.horizon, p.vintage, p.level
+    SELECT model, horizon, vintage, level,
+           count(*) AS n_common,
+           sum(wis_m) / nullif(sum(wis_p), 0) AS relative_wis,
+           sum(ae_m) / nullif(sum(ae_p), 0) AS relative_mae,
+           avg(wis_m) AS mean_wis, avg(wis_p) AS persistence_mean_wis,
+           avg(ae_m) AS mae, avg(ae_p) AS persistence_mae
+    FROM common
+    GROUP BY model, horizon, vintage, level
 ),
 model_counts AS (
-    SELECT model, horizon, vintage, level, CAST(sum(n) AS BIGINT) AS n_model
-    FROM model_groups GROUP BY model, horizon, vintage, level
+    SELECT model, horizon, vintage, level, count(*) AS n_model
+    FROM model_rows GROUP BY model, horizon, vintage, level
 ),
 persistence_counts AS (
-    SELECT horizon, vintage, level, CAST(sum(n) AS BIGINT) AS n_persistence
-    FROM model_groups WHERE model = 'persistence' GROUP BY horizon, vintage, level
+    SELECT horizon, vintage, level, count(*) AS n_persistence
+    FROM persistence_rows GROUP BY horizon, vintage, level
 )
 SELECT
     mc.model, mc.horizon, mc.vintage, mc.level,
@@ -86,125 +63,92 @@ SELECT
 FROM model_counts AS mc
 LEFT JOIN persistence_counts AS pc USING (horizon, vintage, level)
 LEFT JOIN compared AS c USING (model, horizon, vintage, level)
-""",
-    "exceedances": """
-WITH summary_groups AS MATERIALIZED (
-    SELECT * FROM accuracy_groups
-)
+"""
+
+FULL_LOG = {
+    "accuracy_summary": """
 SELECT
-    e.model, e.run_kind, e.cutoff, e.run_id, e.target_month, e.vintage, e.origin, e.destination,
-    e.actual, e.mean, e.q500, e.q950,
-    e.actual - e.q950 AS excess,
-    e.actual / nullif(e.q950, 0) AS excess_ratio,
-    row_number() OVER (
-        PARTITION BY e.model, e.run_kind, e.cutoff, e.vintage
-        ORDER BY e.actual - e.q950 DESC, e.origin, e.destination
-    ) AS rank
-FROM accuracy_exceedance_candidates AS e
-SEMI JOIN accuracy_summary_runs_of('summary_groups') AS r ON r.run_id = e.run_id AND r.is_latest_run
+    model, run_kind, horizon, cutoff, vintage, level,
+    count(*) AS n,
+    avg(abs_error) AS mae,
+    sqrt(avg(sq_error)) AS rmse,
+    avg(scaled_error) AS mase,
+    avg(poisson_deviance) AS mean_poisson_deviance,
+    avg(tweedie_deviance) AS mean_tweedie_deviance,
+    avg(CAST(covered_50 AS DOUBLE)) AS coverage_50,
+    avg(CAST(covered_90 AS DOUBLE)) AS coverage_90,
+    avg(wis) AS mean_wis,
+    avg(wis_dispersion) AS mean_wis_dispersion,
+    avg(wis_overprediction) AS mean_wis_overprediction,
+    avg(wis_underprediction) AS mean_wis_underprediction,
+    avg(error) AS bias,
+    count(*) FILTER (WHERE predicted_positive AND actual_positive)
+        / nullif(count(*) FILTER (WHERE predicted_positive), 0) AS precision,
+    count(*) FILTER (WHERE predicted_positive AND actual_positive)
+        / nullif(count(*) FILTER (WHERE actual_positive), 0) AS recall,
+    count(*) FILTER (WHERE actual_positive) AS n_positive,
+    count(*) FILTER (WHERE exceeded) AS exceedances,
+    avg(CAST(exceeded AS DOUBLE)) AS exceedance_rate
+FROM accuracy_current
+GROUP BY model, run_kind, horizon, cutoff, vintage, level
 """,
-    "accuracy_by_horizon": """
-WITH summary_groups AS MATERIALIZED (
-    SELECT * FROM accuracy_groups
-),
-pooled AS (
+    "skill_vs_persistence": SKILL_VS_PERSISTENCE,
+    "exceedances": """
+SELECT
+    model, run_kind, cutoff, run_id, target_month, vintage, origin, destination,
+    actual, mean, q500, q950,
+    actual - q950 AS excess,
+    actual / nullif(q950, 0) AS excess_ratio,
+    row_number() OVER (
+        PARTITION BY model, run_kind, cutoff, vintage
+        ORDER BY actual - q950 DESC, origin, destination
+    ) AS rank
+FROM accuracy_current
+WHERE level = 'dyad' AND horizon = 1 AND exceeded
+""",
+    "accuracy_by_horizon": f"""
+WITH pooled AS (
     SELECT
-        g.model, g.horizon, g.vintage, g.level,
-        CAST(sum(g.n) AS BIGINT) AS n,
-        count(DISTINCT g.cutoff) AS n_cutoffs,
-        min(g.cutoff) AS first_cutoff,
-        max(g.cutoff) AS last_cutoff,
-        sum(g.sum_abs_error) / sum(g.n) AS mae,
-        sqrt(sum(g.sum_sq_error) / sum(g.n)) AS rmse,
-        sum(g.sum_scaled_error) / nullif(sum(g.n_scaled), 0) AS mase,
-        sum(g.sum_wis) / sum(g.n) AS mean_wis,
-        sum(g.n_covered_50) / sum(g.n) AS coverage_50,
-        sum(g.n_covered_90) / sum(g.n) AS coverage_90,
-        sum(g.sum_error) / sum(g.n) AS bias,
-        sum(g.n_exceeded) / sum(g.n) AS exceedance_rate
-    FROM summary_groups AS g
-    SEMI JOIN accuracy_summary_runs_of('summary_groups') AS r ON r.run_id = g.run_id AND r.is_skill_run
-    GROUP BY g.model, g.horizon, g.vintage, g.level
+        model, horizon, vintage, level,
+        count(*) AS n,
+        count(DISTINCT cutoff) AS n_cutoffs,
+        min(cutoff) AS first_cutoff,
+        max(cutoff) AS last_cutoff,
+        avg(abs_error) AS mae,
+        sqrt(avg(sq_error)) AS rmse,
+        avg(scaled_error) AS mase,
+        avg(wis) AS mean_wis,
+        avg(CAST(covered_50 AS DOUBLE)) AS coverage_50,
+        avg(CAST(covered_90 AS DOUBLE)) AS coverage_90,
+        avg(error) AS bias,
+        avg(CAST(exceeded AS DOUBLE)) AS exceedance_rate
+    FROM ({SKILL_ROWS})
+    GROUP BY model, horizon, vintage, level
 )
 SELECT p.*, s.relative_wis, s.relative_mae, s.n_common, s.note
 FROM pooled AS p
-LEFT JOIN (
-WITH summary_groups AS MATERIALIZED (
-    SELECT * FROM accuracy_groups
-),
-skill_runs AS MATERIALIZED (
-    SELECT run_id, model FROM accuracy_summary_runs_of('summary_groups') WHERE is_skill_run
-),
-model_groups AS MATERIALIZED (
-    SELECT g.model, g.horizon, g.vintage, g.level, g.n
-    FROM summary_groups AS g
-    SEMI JOIN skill_runs AS r ON r.run_id = g.run_id
-),
-compared AS (
-    SELECT r.model, p.horizon, p.vintage, p.level,
-           CAST(sum(p.n_common) AS BIGINT) AS n_common,
-           sum(p.sum_wis) / nullif(sum(p.sum_wis_persistence), 0) AS relative_wis,
-           sum(p.sum_abs_error) / nullif(sum(p.sum_abs_error_persistence), 0) AS relative_mae,
-           sum(p.sum_wis) / sum(p.n_common) AS mean_wis,
-           sum(p.sum_wis_persistence) / sum(p.n_common) AS persistence_mean_wis,
-           sum(p.sum_abs_error) / sum(p.n_common) AS mae,
-           sum(p.sum_abs_error_persistence) / sum(p.n_common) AS persistence_mae
-    FROM accuracy_pairs AS p
-    JOIN skill_runs AS r ON r.run_id = p.run_id
-    SEMI JOIN skill_runs AS pr ON pr.run_id = p.persistence_run_id AND pr.model = 'persistence'
-    GROUP BY r.model, p.horizon, p.vintage, p.level
-),
-model_counts AS (
-    SELECT model, horizon, vintage, level, CAST(sum(n) AS BIGINT) AS n_model
-    FROM model_groups GROUP BY model, horizon, vintage, level
-),
-persistence_counts AS (
-    SELECT horizon, vintage, level, CAST(sum(n) AS BIGINT) AS n_persistence
-    FROM model_groups WHERE model = 'persistence' GROUP BY horizon, vintage, level
-)
-SELECT
-    mc.model, mc.horizon, mc.vintage, mc.level,
-    mc.n_model,
-    coalesce(pc.n_persistence, 0) AS n_persistence,
-    coalesce(c.n_common, 0) AS n_common,
-    c.relative_wis, c.relative_mae,
-    c.mean_wis, c.persistence_mean_wis, c.mae, c.persistence_mae,
-    (coalesce(c.n_common, 0) < mc.n_model OR coalesce(c.n_common, 0) < coalesce(pc.n_persistence, 0)) AS sets_differ,
-    CASE
-        WHEN coalesce(c.n_common, 0) = 0 THEN 'no target forecast by both this model and persistence'
-        WHEN c.n_common < mc.n_model OR c.n_common < pc.n_persistence THEN
-            'compared on ' || c.n_common || ' common targets (model scored ' || mc.n_model
-            || ', persistence ' || pc.n_persistence || ')'
-        ELSE NULL
-    END AS note
-FROM model_counts AS mc
-LEFT JOIN persistence_counts AS pc USING (horizon, vintage, level)
-LEFT JOIN compared AS c USING (model, horizon, vintage, level)
-) AS s USING (model, horizon, vintage, level)
+LEFT JOIN ({SKILL_VS_PERSISTENCE}) AS s USING (model, horizon, vintage, level)
 """,
     "accuracy_overview": """
-WITH summary_groups AS MATERIALIZED (
-    SELECT * FROM accuracy_groups
-)
 SELECT
-    g.model, g.cutoff, g.horizon, g.vintage, g.level,
-    any_value(g.run_id) AS run_id,
-    any_value(g.run_kind) AS run_kind,
-    CAST(sum(g.n) AS BIGINT) AS n,
-    sum(g.sum_abs_error) / sum(g.n) AS mae,
-    sqrt(sum(g.sum_sq_error) / sum(g.n)) AS rmse,
-    sum(g.sum_scaled_error) / nullif(sum(g.n_scaled), 0) AS mase,
-    sum(g.sum_wis) / sum(g.n) AS mean_wis,
-    sum(g.sum_wis_dispersion) / sum(g.n) AS mean_wis_dispersion,
-    sum(g.sum_wis_overprediction) / sum(g.n) AS mean_wis_overprediction,
-    sum(g.sum_wis_underprediction) / sum(g.n) AS mean_wis_underprediction,
-    sum(g.sum_error) / sum(g.n) AS bias,
-    sum(g.n_covered_50) / sum(g.n) AS coverage_50,
-    sum(g.n_covered_90) / sum(g.n) AS coverage_90,
-    CAST(sum(g.n_exceeded) AS BIGINT) AS exceedances,
-    CAST(sum(g.n_actual_above_zero) AS BIGINT) AS n_positive
-FROM summary_groups AS g
-SEMI JOIN accuracy_summary_runs_of('summary_groups') AS r ON r.run_id = g.run_id AND r.is_reference_run
-GROUP BY g.model, g.cutoff, g.horizon, g.vintage, g.level
+    model, cutoff, horizon, vintage, level,
+    any_value(run_id) AS run_id,
+    any_value(run_kind) AS run_kind,
+    count(*) AS n,
+    avg(abs_error) AS mae,
+    sqrt(avg(sq_error)) AS rmse,
+    avg(scaled_error) AS mase,
+    avg(wis) AS mean_wis,
+    avg(wis_dispersion) AS mean_wis_dispersion,
+    avg(wis_overprediction) AS mean_wis_overprediction,
+    avg(wis_underprediction) AS mean_wis_underprediction,
+    avg(error) AS bias,
+    avg(CAST(covered_50 AS DOUBLE)) AS coverage_50,
+    avg(CAST(covered_90 AS DOUBLE)) AS coverage_90,
+    count(*) FILTER (WHERE exceeded) AS exceedances,
+    count(*) FILTER (WHERE actual > 0) AS n_positive
+FROM accuracy_log
+WHERE is_reference_run AND is_current
+GROUP BY model, cutoff, horizon, vintage, level
 """,
 }

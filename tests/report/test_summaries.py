@@ -107,6 +107,26 @@ def test_views_read_live_what_is_not_summarised_yet(wh) -> None:
     assert wh.execute("SELECT count(*) FROM accuracy_group_stats").fetchone()[0] > 0, "nothing stored by a read"
 
 
+def test_live_rows_are_the_current_rows_of_the_groups_not_summarised(wh) -> None:
+    """accuracy_recompute_rows, the live part every summary view shares, holds exactly the rows that the
+    full-log view accuracy_log flags is_current in the groups being recomputed, revised ones included."""
+    for batch in ("b1", "b2", "b3"):
+        add_batch(wh, batch)
+    refresh_summaries(wh)
+    add_batch(wh, "b4")
+    in_groups = ("FROM accuracy_log AS l SEMI JOIN accuracy_recompute_groups AS g ON g.run_id = l.run_id "
+                 "AND g.target_month = l.target_month AND g.vintage = l.vintage")
+    assert wh.execute(f"SELECT count(*) {in_groups} WHERE NOT l.is_current").fetchone()[0] > 0, "a revision"
+    columns = "run_id, level, origin, destination, target_month, vintage, horizon, actual, mean, wis, scaled_error"
+    key = ["run_id", "level", "origin", "destination", "target_month", "vintage"]
+    got = wh.execute(f"SELECT {columns} FROM accuracy_recompute_rows").df().sort_values(key, ignore_index=True)
+    want = wh.execute(f"SELECT {columns} {in_groups} WHERE l.is_current").df().sort_values(key, ignore_index=True)
+    assert len(got) > 0
+    pd.testing.assert_frame_equal(got, want)
+    refresh_summaries(wh)
+    assert wh.execute("SELECT count(*) FROM accuracy_recompute_rows").fetchone()[0] == 0
+
+
 def test_a_batch_that_leaves_the_log_makes_every_group_recomputed(wh) -> None:
     for batch in ("b1", "b2", "b3", "b4"):
         add_batch(wh, batch)

@@ -18,6 +18,7 @@ from dyadcast.workspace import Workspace
 @with_workspace
 def score_command(ws: Workspace, vintage: str, level: str, rebuild: bool) -> None:
     """Score every stored forecast whose actuals arrived or were revised, then print the summary table."""
+    from dyadcast.report.summaries import refresh_summaries
     from dyadcast.scoring import rebuild_accuracy_index, score_pending
     from dyadcast.scoring.summary import format_summary, summary_table
 
@@ -28,6 +29,9 @@ def score_command(ws: Workspace, vintage: str, level: str, rebuild: bool) -> Non
                 n = rebuild_accuracy_index(con, store)
                 click.echo(f"accuracy_rows rebuilt from {store}: {n:,} rows")
             score_pending(con, store, progress=click.echo)
+            # the table reads the accuracy summaries: bring them up to date once (capped memory) rather than
+            # have every view compute the new groups live (3x the work, 3.3 GB at 40,000 dyads, measured)
+            click.echo(refresh_summaries(con).to_text())
             table = summary_table(con, vintage=vintage, level=level)
     except ValueError as exc:
         raise click.ClickException(str(exc)) from exc

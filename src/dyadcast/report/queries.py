@@ -103,7 +103,7 @@ def surprises(con: duckdb.DuckDBPyConnection, model: str, limit: int = 10) -> pd
     """
     if limit > SURPRISE_DEPTH:
         raise ValueError(f"surprises: limit {limit} is above the {SURPRISE_DEPTH} rows per run, target month and "
-                         "vintage that accuracy_surprise_rows keeps (sql/50_10); raise both together")
+                         "vintage that accuracy_surprise_rows keeps (sql/50_11); raise both together")
     if not relation_exists(con, "accuracy_surprise_candidates"):
         return pd.DataFrame()
     sql = (

@@ -2,7 +2,7 @@
 
 The report, the accuracy views (sql/51-54) and `accuracy_overview` read per-group sums instead of the log,
 so their cost follows the newest scoring batches, not the length of the history. This module stores those
-sums for the batches not summarised yet; the SQL that computes them lives in sql/50_01-50_10 and is the same
+sums for the batches not summarised yet; the SQL that computes them lives in sql/50_01-50_11 and is the same
 SQL the views run live for whatever is not stored yet, so a stale summary can make a read slower, never
 different. The report build calls `refresh_summaries` first; anything else may call it after scoring.
 """
@@ -18,7 +18,7 @@ from datetime import UTC, datetime
 
 import duckdb
 
-# summary table -> the macro (sql/50_07-50_10) that computes its rows from current accuracy rows
+# summary table -> the macro (sql/50_08-50_11) that computes its rows from current accuracy rows
 TABLES: dict[str, str] = {
     "accuracy_group_stats": "accuracy_group_stats_of",
     "accuracy_pair_stats": "accuracy_pair_stats_of",
@@ -39,7 +39,7 @@ MONTHS_PER_PASS = 2
 REFRESH_MEMORY_LIMIT = 1 << 30
 _UNITS = {"b": 1, "bytes": 1, "kb": 10**3, "mb": 10**6, "gb": 10**9, "tb": 10**12,
           "kib": 2**10, "mib": 2**20, "gib": 2**30, "tib": 2**40}
-SURPRISE_DEPTH = 20  # rows kept per group by accuracy_surprise_rows_of (sql/50_10)
+SURPRISE_DEPTH = 20  # rows kept per group by accuracy_surprise_rows_of (sql/50_11)
 
 
 @dataclass(frozen=True)
