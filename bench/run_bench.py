@@ -32,8 +32,8 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # measured 2-4x faster on th
 # ws_12 for the cycle are taken after seed_12 and before score_12 ingests the new month into it.
 PLAN: list[tuple[str, float]] = [
     ("generate", 120), ("backfill", 240), ("backfill_dense", 240), ("features_pandas", 300),
-    ("features_sql", 240), ("seed_12", 300), ("score_12", 300), ("cycle", 600), ("seed_120", 900),
-    ("score_120", 600), ("prefect", 600), ("prefect_server", 600), ("models_extra", 900),
+    ("features_sql", 240), ("seed_12", 300), ("score_12", 300), ("cycle", 600), ("prefect", 600),
+    ("prefect_server", 600), ("seed_120", 900), ("score_120", 300), ("models_extra", 900), ("report_120", 900),
 ]
 LIBRARIES = ("duckdb", "pandas", "pyarrow", "numpy", "lightgbm", "prefect", "great-expectations", "statsmodels",
              "pyfixest", "scikit-learn")

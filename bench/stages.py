@@ -217,7 +217,9 @@ def seed(ctx: Context, meter: Meter, n_runs: int, genuine: bool = False) -> None
     The two runs of the month six before the newest are scored for real (all their targets but one are
     known); every other run gets a copy of that scored state (seed_runs.copy_scored_state explains why).
     `genuine` (ws_12, which the cycle stages copy): the newest tweedie_gbm run is a real one instead of a copy
-    (`previous_run`), so the cycle refreshes from a genuine fitted state and boosters.
+    (`previous_run`), so the cycle refreshes from a genuine fitted state and boosters, and last month's report
+    is built (`previous_report`), so the cycle's report only brings its summaries up to date. ws_120 builds
+    none: its first report, over the whole log, is the stage `report_120`.
     """
     from dyadcast.report import build_report
     from dyadcast.scoring import score_pending
@@ -248,16 +250,16 @@ def seed(ctx: Context, meter: Meter, n_runs: int, genuine: bool = False) -> None
                                             [r.run_id for r in others], newest)
         if genuine:
             previous_run(ctx, meter, ws, con, newest)
-        with meter.stage("previous_report", note="setup, not a target: the report of the newest history month, as "
-                         "last month's cycle built it; the first build after an upgrade, summarising the whole log"):
-            build_report(con, ws, newest)
+            with meter.stage("previous_report", note="setup, not a target: the report of the newest history month, "
+                             "as last month's cycle built it; the first build after an upgrade, summarising the log"):
+                build_report(con, ws, newest)
         counts = {t: con.execute(f"SELECT count(*) FROM {t}").fetchall()[0][0]
                   for t in ("snapshot_runs", "forecast_rows", "accuracy_rows", "scoring_checks")}
     meter.extra.update(workspace_mb=folder_mb(ws.root), table_rows=counts)
 
 
-def score_new_month(ctx: Context, meter: Meter, n_runs: int) -> None:
-    """Ingest the new month's drop, then time the scoring it triggers and the report after it."""
+def score_new_month(ctx: Context, meter: Meter, n_runs: int, report: bool = True) -> None:
+    """Ingest the new month's drop, then time the scoring it triggers and (`report`) the report after it."""
     from dyadcast.report import build_report
     from dyadcast.scoring import score_pending
     from dyadcast.warehouse import open_warehouse
@@ -269,7 +271,22 @@ def score_new_month(ctx: Context, meter: Meter, n_runs: int) -> None:
         with meter.stage(f"score_{n_runs}_stored", stored_runs=int(stored)) as rec:
             result = score_pending(con, ws.accuracy_store())
             rec.update(rows=result.rows_written, runs_scored=len(result.runs_scored), targets=result.targets_checked)
-        with meter.stage(f"report_{n_runs}_stored", note="the report reads the whole accuracy log"):
+        if report:
+            with meter.stage(f"report_{n_runs}_stored", note="the previous report's summaries brought up to date"):
+                build_report(con, ws, ctx.new_month)
+
+
+def first_report(ctx: Context, meter: Meter, n_runs: int) -> None:
+    """The report of a workspace with `n_runs` stored runs that never built one: its accuracy summaries are
+    built from the whole log (a one-off, as after an upgrade; later reports only add the new batches)."""
+    from dyadcast.report import build_report
+    from dyadcast.warehouse import open_warehouse
+
+    ws = ctx.ws(str(n_runs))
+    with open_warehouse(ws.warehouse_path) as con:
+        rows = con.execute("SELECT count(*) FROM accuracy_rows").fetchall()[0][0]
+        with meter.stage(f"first_report_{n_runs}_stored", accuracy_rows=int(rows),
+                         note="one-off: the summaries of the whole log built at once"):
             build_report(con, ws, ctx.new_month)
 
 
@@ -379,7 +396,8 @@ STAGES: dict[str, Callable[[Context, Meter], None]] = {
     "seed_12": lambda ctx, meter: seed(ctx, meter, 12, genuine=True),
     "seed_120": lambda ctx, meter: seed(ctx, meter, 120),
     "score_12": lambda ctx, meter: score_new_month(ctx, meter, 12),
-    "score_120": lambda ctx, meter: score_new_month(ctx, meter, 120),
+    "score_120": lambda ctx, meter: score_new_month(ctx, meter, 120, report=False),
+    "report_120": lambda ctx, meter: first_report(ctx, meter, 120),
     "cycle": monthly_cycle,
 }
 
