@@ -79,12 +79,15 @@ def models_extra(ctx: Context, meter: Meter) -> None:
     if cycle_state.exists():
         state = json.loads(cycle_state.read_text()).get("extra", {}).get("tweedie_fitted_state")
         if state:
-            runs.insert(0, ("tweedie_gbm_refresh", "tweedie_gbm", {"params": state, "tune": False}))
+            # last: the cycle already measured the refresh that continues the boosters; this is the refit with
+            # the stored power and rounds (snapshots in an object store, or after max_continuations)
+            runs.append(("tweedie_gbm_refit_stored_params", "tweedie_gbm", {"params": state, "tune": False}))
     for label, name, options in runs:
         result = _timed_fit(name, options, data, config, ctx.model_budget_s)
         meter.records.append({"stage": f"fit_forecast_{label}", **result,
                               "peak_source": "ru_maxrss of the fit process"})
         meter.extra["done"] = label
+        meter.save()  # each fit is kept if the stage is stopped at its cap during the next one
         print(f"  {label}: {result.get('status')} {result.get('wall_s')} s", file=sys.stderr, flush=True)
 
 

@@ -76,7 +76,7 @@ class Meter:
             self._peak = before
         high_before = max_rss_mb()
         self.running = {"stage": name, "started_unix": time.time()}
-        self._save()
+        self.save()
         wall, cpu = time.perf_counter(), time.process_time()
         try:
             yield record
@@ -96,9 +96,9 @@ class Meter:
             record.setdefault("status", "ok")
             self.records.append(record)
             self.running = None
-            self._save()
+            self.save()
 
-    def _save(self) -> None:
+    def save(self) -> None:
         if self.out is None:
             return
         self.out.parent.mkdir(parents=True, exist_ok=True)
@@ -111,4 +111,4 @@ class Meter:
     def close(self) -> None:
         self._stop.set()
         self._thread.join(timeout=1)
-        self._save()
+        self.save()
