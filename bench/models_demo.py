@@ -155,15 +155,12 @@ def with_model_files(model: Any, state: dict[str, Any]) -> dict[str, Any]:
 
 
 def _at(frame, pseudo, horizon: int):  # noqa: ANN001, ANN202 - (training frame, rows at the pseudo-cutoff)
-    import numpy as np
     import pandas as pd
 
-    months = pd.to_datetime(frame["month"])
-    past = frame[months < pseudo].copy()
-    past_months = pd.to_datetime(past["month"])
-    for h in range(1, horizon + 1):
-        past.loc[(past_months + pd.DateOffset(months=h) > pseudo).to_numpy(), f"target_{h}"] = np.nan
-    return past, frame[months == pseudo]
+    from dyadcast.models.base import known_at
+
+    past = known_at(frame, pseudo, horizon)
+    return past[pd.to_datetime(past["month"]) < pseudo], frame[pd.to_datetime(frame["month"]) == pseudo]
 
 
 def score_models(data, config, names: list[str], backs: tuple[int, ...] = (6, 9, 12)  # noqa: ANN001

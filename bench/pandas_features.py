@@ -21,6 +21,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from dyadcast.grid import HistoryGrid
+from dyadcast.months import month_starts
 
 KEYS = ["origin", "destination", "month"]
 DYAD = ["origin", "destination"]
@@ -154,7 +155,7 @@ def frame_from_grid(grid: HistoryGrid) -> pd.DataFrame:
     frame = pd.DataFrame({
         "origin": grid.origin_names.take(dyad_rows).to_pandas(),
         "destination": grid.destination_names.take(dyad_rows).to_pandas(),
-        "month": pd.to_datetime((months - 1970 * 12).astype("datetime64[M]")),
+        "month": month_starts(months),
         **grid.columns, "calendar_month": months % 12 + 1,
     })
     for h, values in enumerate(grid.targets, start=1):

@@ -34,6 +34,7 @@ from global_panel import FULL, SMALL, month_starts, publication
 
 from dyadcast import cycle
 from dyadcast.config import Config
+from dyadcast.models.base import known_at
 from dyadcast.models.ensemble import wis
 from dyadcast.models.tweedie_gbm import ARTIFACTS_KEY, TweedieGBM
 
@@ -53,12 +54,8 @@ def prepared(work: Path, config: Config) -> Any:  # noqa: ANN401 - cycle.Prepare
 
 def at_cutoff(frame: pd.DataFrame, cutoff: pd.Timestamp, horizon: int) -> tuple[pd.DataFrame, pd.DataFrame]:
     """(training rows, rows to forecast) as a cycle at `cutoff` would see them (revisions aside)."""
-    months = pd.to_datetime(frame["month"])
-    past = frame[months < cutoff].copy()
-    anchors = pd.to_datetime(past["month"])
-    for h in range(1, horizon + 1):
-        past.loc[(anchors + pd.DateOffset(months=h) > cutoff).to_numpy(), f"target_{h}"] = np.nan
-    return past, frame[months == cutoff]
+    past = known_at(frame, cutoff, horizon)
+    return past[pd.to_datetime(past["month"]) < cutoff], frame[pd.to_datetime(frame["month"]) == cutoff]
 
 
 def timed(label: str, run) -> tuple[Any, dict[str, float]]:  # noqa: ANN001 - a callable

@@ -11,7 +11,15 @@ import pytest
 
 from dyadcast.config import ConfigError, load_config
 from dyadcast.models.base import finalize_forecast, quantile_column
-from dyadcast.months import add_months, format_month, month_range, parse_month
+from dyadcast.months import (
+    add_months,
+    format_month,
+    month_from_index,
+    month_index,
+    month_range,
+    month_starts,
+    parse_month,
+)
 from dyadcast.snapshots import (
     SnapshotExistsError,
     index_snapshot,
@@ -154,3 +162,11 @@ def test_model_options_reach_the_config(tmp_path) -> None:
     path.write_text("[model_options]\nzinb = 3\n", encoding="utf-8")
     with pytest.raises(ConfigError, match="one table per model"):
         load_config(path)
+
+
+def test_month_index_round_trips_one_by_one_and_as_an_array() -> None:
+    days = [date(1999, 12, 1), date(2000, 1, 1), date(2024, 2, 1), date(2031, 7, 1)]
+    assert [month_from_index(month_index(d)) for d in days] == days
+    starts = month_starts(np.array([month_index(d) for d in days]))
+    assert starts.dtype == np.dtype("datetime64[us]")
+    assert list(starts.astype("datetime64[D]").astype(object)) == days

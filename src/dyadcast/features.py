@@ -22,7 +22,7 @@ import pyarrow as pa
 from dyadcast import signals
 from dyadcast.config import SignalConfig
 from dyadcast.grid import MONTHS_SINCE_POSITIVE_CAP, anchor_dates, history_grid
-from dyadcast.months import format_month
+from dyadcast.months import format_month, month_starts
 
 KEYS = ["origin", "destination", "month"]
 HISTORY = [
@@ -143,7 +143,7 @@ def build_features(
     feature_names = [*HISTORY, *push_cols, *pull_cols, *ATTRIBUTES, "calendar_month", *signal_cols]
     computed = {**push_cols, **pull_cols, **signal_cols, **dict(zip(target_names, targets, strict=True))}
     month_numbers = first + rel
-    computed["month"] = pa.array((month_numbers - 1970 * 12).astype("datetime64[M]").astype("datetime64[us]"))
+    computed["month"] = pa.array(month_starts(month_numbers))
     computed["calendar_month"] = month_numbers % 12 + 1
     dyad_rows = np.repeat(np.arange(grid.n_dyads), n_months)
     computed["origin"] = grid.origin_names.take(dyad_rows)

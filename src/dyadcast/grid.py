@@ -23,7 +23,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from dyadcast.months import add_months, month_index
+from dyadcast.months import month_from_index, month_index, month_range
 
 WINDOW = 12  # longest look-back of a feature: lag_12, roll_mean_12, origin_share_12
 MONTHS_SINCE_POSITIVE_CAP = 120  # also set in sql/40_01_dyad_features.sql
@@ -49,10 +49,6 @@ class HistoryGrid:
     @property
     def n_dyads(self) -> int:
         return len(self.origin_code)
-
-
-def _date(month_number: int) -> date:
-    return date(month_number // 12, month_number % 12 + 1, 1)
 
 
 def _first_panel_month(con: duckdb.DuckDBPyConnection, as_of: date, cutoff: date) -> int | None:
@@ -118,7 +114,7 @@ def history_grid(
     origin_code, origins = _codes(dyads.column("origin").combine_chunks())
     destination_code, destinations = _codes(dyads.column("destination").combine_chunks())
     n = dyads.num_rows
-    cells = con.sql("SELECT * FROM grid_cells(?, ?, ?)", params=[as_of, _date(lo), cutoff]).to_arrow_table()
+    cells = con.sql("SELECT * FROM grid_cells(?, ?, ?)", params=[as_of, month_from_index(lo), cutoff]).to_arrow_table()
     cell_destination = pc.index_in(cells.column("destination"), value_set=pa.array(destinations, pa.string()))
     known = cell_destination.is_valid().to_numpy(zero_copy_only=False)
     reported = np.zeros((len(destinations), width), dtype=bool)
@@ -128,7 +124,7 @@ def history_grid(
 
     # months_since_positive looks back at most the cap, so older rows cannot matter
     read_from = max(first, anchor0 - MONTHS_SINCE_POSITIVE_CAP)
-    listed = con.sql("SELECT * FROM grid_listed(?, ?, ?)", params=[as_of, _date(read_from), cutoff]).fetchnumpy()
+    listed = con.sql("SELECT * FROM grid_listed(?, ?, ?)", params=[as_of, month_from_index(read_from), cutoff]).fetchnumpy()
     dyad = np.asarray(listed["dyad_index"], dtype=np.int64) - 1
     month = np.asarray(listed["month_number"], dtype=np.int64)
     arrivals = np.asarray(listed["arrivals"], dtype=float)
@@ -178,4 +174,4 @@ def history_grid(
 
 
 def anchor_dates(grid: HistoryGrid) -> list[date]:
-    return [add_months(_date(grid.first_anchor), i) for i in range(grid.n_anchors)]
+    return month_range(month_from_index(grid.first_anchor), month_from_index(grid.first_anchor + grid.n_anchors - 1))

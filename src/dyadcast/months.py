@@ -5,6 +5,8 @@ from __future__ import annotations
 import re
 from datetime import date
 
+import numpy as np
+
 MONTH_PATTERN = re.compile(r"^\d{4}-(?:0[1-9]|1[0-2])$")
 
 
@@ -26,6 +28,16 @@ def add_months(day: date, months: int) -> date:
 
 def month_index(day: date) -> int:
     return day.year * 12 + day.month - 1
+
+
+def month_from_index(index: int) -> date:
+    """month_index(day) -> the first day of that month."""
+    return date(index // 12, index % 12 + 1, 1)
+
+
+def month_starts(indices: np.ndarray) -> np.ndarray:
+    """Many month indices -> their first days as datetime64[us] (the dtype of the feature frame's `month`)."""
+    return (np.asarray(indices) - 1970 * 12).astype("datetime64[M]").astype("datetime64[us]")
 
 
 def months_between(start: date, end: date) -> int:

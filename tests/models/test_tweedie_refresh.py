@@ -19,6 +19,7 @@ from sklearn.metrics import mean_poisson_deviance
 sys.path.insert(0, str(Path(__file__).parent))
 from _frames_d2 import simulate  # noqa: E402
 
+from dyadcast.models.base import known_at  # noqa: E402
 from dyadcast.models.tweedie_gbm import ARTIFACTS_KEY, TweedieGBM, booster_file  # noqa: E402
 
 LEVELS = (0.05, 0.25, 0.5, 0.75, 0.95)
@@ -37,12 +38,9 @@ OLD_STATE = {
 
 
 def at_cutoff(frame: pd.DataFrame, cutoff: pd.Timestamp, horizon: int) -> tuple[pd.DataFrame, pd.DataFrame]:
-    months = pd.to_datetime(frame["month"])
-    past = frame[months < cutoff].copy()
-    anchors = pd.to_datetime(past["month"])
-    for h in range(1, horizon + 1):
-        past.loc[(anchors + pd.DateOffset(months=h) > cutoff).to_numpy(), f"target_{h}"] = np.nan
-    return past.reset_index(drop=True), frame[months == cutoff].reset_index(drop=True)
+    past = known_at(frame, cutoff, horizon)
+    past = past[pd.to_datetime(past["month"]) < cutoff]
+    return past.reset_index(drop=True), frame[pd.to_datetime(frame["month"]) == cutoff].reset_index(drop=True)
 
 
 def stored(model: TweedieGBM, folder: Path) -> dict:

@@ -114,6 +114,17 @@ def finalize_forecast(frame: pd.DataFrame, quantiles: Sequence[float]) -> pd.Dat
     return out[forecast_columns(quantiles)].reset_index(drop=True)
 
 
+def known_at(frame: pd.DataFrame, cutoff: pd.Timestamp, horizon: int) -> pd.DataFrame:
+    """The rows anchored at or before `cutoff`, with every target month after `cutoff` hidden (NaN): what a run
+    at that cutoff could have trained on (revisions aside). For pseudo-cutoffs inside a training frame."""
+    months = pd.to_datetime(frame["month"])
+    past = frame[months <= cutoff].copy()
+    anchors = pd.to_datetime(past["month"])
+    for h in range(1, horizon + 1):
+        past.loc[(anchors + pd.DateOffset(months=h) > cutoff).to_numpy(), target_column(h)] = np.nan
+    return past
+
+
 def target_months(rows: pd.DataFrame, horizon: int) -> pd.Series:
     """Target month t+h for anchor month t (first-of-month timestamps)."""
     return (pd.to_datetime(rows["month"]) + pd.DateOffset(months=horizon)).dt.as_unit("us")

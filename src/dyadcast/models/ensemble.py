@@ -37,6 +37,7 @@ from dyadcast.models.base import (
     FORECAST_KEY_COLUMNS,
     CountModel,
     finalize_forecast,
+    known_at,
     quantile_column,
     target_column,
 )
@@ -211,13 +212,8 @@ class Ensemble(CountModel):
         if known.empty:
             return {}, {}
         pseudo = pd.Timestamp(known.max())
-        months = pd.to_datetime(train["month"])
-        past = train[months <= pseudo].copy()
-        past_months = pd.to_datetime(past["month"])
-        for h in range(1, self.horizon + 1):
-            hidden = past_months + pd.DateOffset(months=h) > pseudo
-            past.loc[hidden.to_numpy(), target_column(h)] = np.nan
-        anchor = train[months == pseudo]
+        past = known_at(train, pseudo, self.horizon)
+        anchor = train[pd.to_datetime(train["month"]) == pseudo]
         levels = sorted(self.quantiles)
         out: dict[int, dict[str, float]] = {}
         fitted = {}
